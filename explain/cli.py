@@ -1,0 +1,145 @@
+"""The ``culprit-lens`` command line: argument parsing and error-to-exit-code only.
+
+Every error the library raises on purpose (:class:`explain.errors.CulpritLensError`) becomes one
+line on stderr and exit status 2, with no traceback; the work itself lives in the library.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from . import CAUTION, __version__
+from .errors import CulpritLensError, InputError
+
+__all__ = ["main", "build_parser"]
+
+
+def _say(quiet):
+    if quiet:
+        return None
+
+    def progress(message):
+        print(f"  {message}", file=sys.stderr, flush=True)
+
+    return progress
+
+
+def _cmd_phantom(args):
+    from .phantom import parse_lesion, write_cohort, write_phantom_case
+
+    if args.count is not None:
+        if args.lesion:
+            raise InputError("--lesion: give lesions for a single case, or --count for a "
+                             "random cohort, not both")
+        if args.count < 1:
+            raise InputError(f"--count: expected a whole number >= 1, got {args.count}")
+        path = write_cohort(args.out, count=args.count, seed=args.seed, force=args.force)
+        print(f"wrote {args.count} phantom cases; cohort table: {path}")
+        return 0
+    lesions = [parse_lesion(text) for text in args.lesion]
+    path = write_phantom_case(args.out, seed=args.seed, lesions=lesions, force=args.force)
+    print(f"wrote phantom case: {path}")
+    return 0
+
+
+def _explain_options(args):
+    return dict(methods=args.methods, target=args.target, points=args.points, size=args.size,
+                pixel_mm=args.pixel_mm, baseline_hu=args.baseline_hu, seed=args.seed)
+
+
+def _cmd_explain(args):
+    from .case import load_case
+    from .model import load_model
+    from .report import explain_case
+
+    progress = _say(args.quiet)
+    case = load_case(args.case)
+    model = load_model(args.model, weights=args.weights)
+    explanation = explain_case(model, case, progress=progress, **_explain_options(args))
+    html = explanation.write(args.out, force=args.force)
+    print(f"culprit: segment {explanation.culprit_label}; report: {html}")
+    return 0
+
+
+def _cmd_demo(args):
+    from .report.demo import run_demo
+
+    html = run_demo(args.out, seed=args.seed, force=args.force, quiet=args.quiet)
+    print(f"report: {html}")
+    return 0
+
+
+def _methods(text):
+    return tuple(m.strip() for m in text.split(",") if m.strip())
+
+
+def build_parser():
+    parser = argparse.ArgumentParser(
+        prog="culprit-lens",
+        description="Explain a max-pooled coronary CT angiography grading model: which segment "
+                    "drove the grade, and where along it. " + CAUTION)
+    parser.add_argument("--version", action="version", version=f"culprit-lens {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    demo = sub.add_parser("demo", help="make a synthetic case, explain it with the bundled "
+                                       "reference model and write the report")
+    demo.add_argument("--out", required=True, help="output folder (must be new or empty)")
+    demo.add_argument("--seed", type=int, default=0, help="seed of the synthetic case (default 0)")
+    demo.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    demo.add_argument("--quiet", action="store_true", help="no progress messages")
+    demo.set_defaults(run=_cmd_demo)
+
+    exp = sub.add_parser("explain", help="explain one case with a model")
+    exp.add_argument("--case", required=True, help="case.json (format culprit-lens-case/1)")
+    exp.add_argument("--model", required=True,
+                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
+    exp.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
+    exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
+    exp.add_argument("--methods", type=_methods, default=None,
+                     help="comma-separated saliency methods (default: the report's defaults)")
+    exp.add_argument("--target", default="predicted",
+                     help="output column index, 'predicted', 'expected', or KEY[:INDEX] for "
+                          "dict outputs (default predicted)")
+    exp.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
+    exp.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
+    exp.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")
+    exp.add_argument("--baseline-hu", type=float, default=0.0,
+                     help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
+    exp.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
+    exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    exp.add_argument("--quiet", action="store_true", help="no progress messages")
+    exp.set_defaults(run=_cmd_explain)
+
+    ph = sub.add_parser("phantom", help="write synthetic CCTA cases with known lesions")
+    ph.add_argument("--out", required=True, help="output folder (must be new or empty)")
+    ph.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    ph.add_argument("--lesion", action="append", default=[], metavar="ID:PERCENT[:KIND]",
+                    help="a lesion on SCCT segment ID narrowing the diameter by PERCENT; KIND is "
+                         "calcified or soft (repeatable)")
+    ph.add_argument("--count", type=int, help="write this many cases with random lesions and a "
+                                              "cohort table instead of one case")
+    ph.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    ph.set_defaults(run=_cmd_phantom)
+    return parser
+
+
+def main(argv=None):
+    """Run the command line; returns the exit status."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return args.run(args)
+    except CulpritLensError as exc:
+        print(f"culprit-lens: error: {exc}", file=sys.stderr)
+        return 2
+    except (FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError) as exc:
+        print(f"culprit-lens: error: {exc.filename or ''}: {exc.strerror}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("culprit-lens: interrupted; nothing half-written was kept", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

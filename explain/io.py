@@ -1,0 +1,201 @@
+"""Images in and out (SimpleITK), and writes that never leave half a file behind.
+
+Supported inputs: NIfTI (``.nii``, ``.nii.gz``), NRRD (``.nrrd``), MetaImage (``.mha``, ``.mhd``),
+or a folder holding one DICOM CT series. DICOM stored values are rescaled to Hounsfield units by
+the reader (HU = stored value x RescaleSlope + RescaleIntercept, DICOM PS3.3 C.11.1).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import numpy as np
+import SimpleITK as sitk
+
+from .errors import InputError
+
+__all__ = [
+    "IMAGE_SUFFIXES",
+    "read_image",
+    "write_image",
+    "write_text",
+    "atomic_output_dir",
+    "same_geometry",
+]
+
+IMAGE_SUFFIXES = (".nii", ".nii.gz", ".nrrd", ".mha", ".mhd")
+
+
+def _suffix(path):
+    name = path.name.lower()
+    for suffix in sorted(IMAGE_SUFFIXES, key=len, reverse=True):
+        if name.endswith(suffix):
+            return suffix
+    return None
+
+
+def _read_dicom_folder(folder, field):
+    reader = sitk.ImageSeriesReader()
+    series = reader.GetGDCMSeriesIDs(str(folder))
+    if not series:
+        raise InputError(
+            f"{field}: the folder {folder} holds no DICOM series; point to a folder with one CT "
+            "series or to a NIfTI/NRRD/MetaImage file"
+        )
+    if len(series) > 1:
+        raise InputError(
+            f"{field}: the folder {folder} holds {len(series)} DICOM series "
+            f"({', '.join(series[:3])}...); keep one CT series per folder"
+        )
+    files = reader.GetGDCMSeriesFileNames(str(folder), series[0])
+    reader.SetFileNames(files)
+    return reader.Execute()
+
+
+def read_image(path, *, field="image"):
+    """Read a 3D CT volume as a float32 SimpleITK image in HU.
+
+    Parameters
+    ----------
+    path : str or Path
+        An image file (``.nii``, ``.nii.gz``, ``.nrrd``, ``.mha``, ``.mhd``) or a folder holding one
+        DICOM series.
+    field : str
+        Where the path came from, for error messages (e.g. ``"case.json: image"``).
+
+    Returns
+    -------
+    SimpleITK.Image
+        3D scalar image, pixel type float32, geometry (origin, spacing, direction) as stored.
+
+    Raises
+    ------
+    InputError
+        Missing, unreadable, not 3D, not scalar, or containing NaN or infinite values.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{field}: {path} does not exist; check the path (relative paths are "
+                         "taken from the manifest's folder)")
+    try:
+        if path.is_dir():
+            image = _read_dicom_folder(path, field)
+        else:
+            if _suffix(path) is None:
+                raise InputError(
+                    f"{field}: {path.name} is not a supported image; use one of "
+                    f"{', '.join(IMAGE_SUFFIXES)} or a DICOM series folder"
+                )
+            image = sitk.ReadImage(str(path))
+    except RuntimeError as exc:
+        first = str(exc).strip().splitlines()[-1] if str(exc).strip() else "unknown reason"
+        raise InputError(f"{field}: cannot read {path}: {first[:200]}") from None
+    if image.GetDimension() != 3:
+        raise InputError(f"{field}: {path} is {image.GetDimension()}D; a 3D CT volume is needed")
+    if image.GetNumberOfComponentsPerPixel() != 1:
+        raise InputError(
+            f"{field}: {path} has {image.GetNumberOfComponentsPerPixel()} components per voxel; "
+            "a scalar CT volume in HU is needed"
+        )
+    image = sitk.Cast(image, sitk.sitkFloat32)
+    values = sitk.GetArrayViewFromImage(image)
+    if not np.isfinite(values).all():
+        bad = int((~np.isfinite(values)).sum())
+        raise InputError(f"{field}: {path} contains {bad} NaN or infinite voxels; fix or "
+                         "replace them before explaining")
+    return image
+
+
+def same_geometry(a, b, *, tolerance=1e-4):
+    """Whether two SimpleITK images share size, origin, spacing and direction.
+
+    Origins and spacings are compared in mm with ``tolerance``; directions element-wise.
+    """
+    return (
+        a.GetSize() == b.GetSize()
+        and np.allclose(a.GetOrigin(), b.GetOrigin(), atol=tolerance)
+        and np.allclose(a.GetSpacing(), b.GetSpacing(), atol=tolerance)
+        and np.allclose(a.GetDirection(), b.GetDirection(), atol=tolerance)
+    )
+
+
+def _temp_beside(path):
+    suffix = _suffix(path) or path.suffix
+    fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=suffix, dir=path.parent)
+    os.close(fd)
+    return Path(name)
+
+
+def write_image(image, path, *, compress=True):
+    """Write a SimpleITK image atomically (to a temporary file beside it, then renamed).
+
+    Parameters
+    ----------
+    image : SimpleITK.Image
+    path : str or Path
+        Destination; the format follows the suffix (``.nii.gz`` for overlays).
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    temp = _temp_beside(path)
+    try:
+        sitk.WriteImage(image, str(temp), compress)
+        os.replace(temp, path)
+    finally:
+        if temp.exists():
+            temp.unlink()
+    return path
+
+
+def write_text(text, path):
+    """Write a text file atomically (UTF-8)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    temp = _temp_beside(path)
+    try:
+        temp.write_text(text, encoding="utf-8")
+        os.replace(temp, path)
+    finally:
+        if temp.exists():
+            temp.unlink()
+    return path
+
+
+@contextlib.contextmanager
+def atomic_output_dir(out_dir, *, force=False, field="--out"):
+    """Build an output folder in a temporary folder beside it; move it into place on success.
+
+    An existing non-empty ``out_dir`` is refused unless ``force``; with ``force`` it is replaced
+    only once the new content is complete. After an error nothing is left behind.
+
+    Yields
+    ------
+    Path
+        The temporary folder to write into.
+    """
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"{field}: {out_dir} exists and is not a folder; choose another path")
+    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
+        raise InputError(
+            f"{field}: {out_dir} exists and is not empty; choose a new folder or pass --force "
+            "to replace it"
+        )
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    temp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    try:
+        yield temp
+    except BaseException:
+        shutil.rmtree(temp, ignore_errors=True)
+        raise
+    old = None
+    if out_dir.exists():
+        old = out_dir.with_name(f".{out_dir.name}.old-{os.getpid()}")
+        os.replace(out_dir, old)
+    os.replace(temp, out_dir)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
