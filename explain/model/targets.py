@@ -1,0 +1,159 @@
+"""Which number of a model's output an explanation explains.
+
+A model returns a ``(B, K)`` tensor or a dict of such tensors. A target names one scalar per
+patient in it:
+
+- an ``int`` column index;
+- ``"predicted"``: the arg-max column, fixed at the patient being explained (so a perturbation
+  that changes the winner does not change what is measured);
+- ``"expected"``: the expected CAD-RADS category, sum over the grade columns of softmax
+  probability times category rank (0 for "0" ... 6 for "5");
+- for dict outputs ``"key"`` (a one-column entry, or the grade entry), ``"key:3"``,
+  ``"key:predicted"`` or ``"key:expected"``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import torch
+
+from ..errors import InputError, ModelError
+from ..grading import CATEGORIES
+
+__all__ = ["Target", "resolve_target"]
+
+
+@dataclass(frozen=True)
+class Target:
+    """A resolved target: the output key, and a column or the expected category.
+
+    Calling it on a model output gives a ``(B,)`` tensor.
+    """
+
+    key: str | None
+    index: int | None
+    ranks: tuple[tuple[int, int], ...] | None = None  # (column, rank) pairs for "expected"
+
+    @property
+    def label(self):
+        """Readable name: ``3``, ``"expected"``, ``"grade:2"``, ``"grade:expected"``."""
+        what = "expected" if self.index is None else self.index
+        return what if self.key is None else f"{self.key}:{what}"
+
+    def __call__(self, output):
+        out = _entry(output, self.key)
+        if out.ndim == 1:
+            out = out[:, None]
+        if self.index is not None:
+            return out[:, self.index]
+        cols = [c for c, _ in self.ranks]
+        ranks = torch.tensor([r for _, r in self.ranks], dtype=out.dtype, device=out.device)
+        return (torch.softmax(out[:, cols], dim=1) * ranks).sum(dim=1)
+
+
+def _entry(output, key):
+    if isinstance(output, dict):
+        if key is None:
+            raise ModelError("the model returns a dict: name the entry in the target, e.g. 'grade:2'")
+        return output[key]
+    if not isinstance(output, torch.Tensor):
+        raise ModelError(
+            f"model output: expected a (B, K) tensor or a dict of tensors, got {type(output).__name__}"
+        )
+    return output
+
+
+def _grade_ranks(n_columns, grade_labels):
+    if grade_labels is None:
+        return tuple((c, c) for c in range(n_columns))
+    if len(grade_labels) != n_columns:
+        raise ModelError(
+            f"grade_labels: {len(grade_labels)} labels for {n_columns} output columns; "
+            "give one label per column"
+        )
+    pairs = tuple(
+        (c, CATEGORIES.index(str(lab).upper()))
+        for c, lab in enumerate(grade_labels)
+        if str(lab).upper() in CATEGORIES
+    )
+    if not pairs:
+        raise InputError(
+            f"target 'expected': none of the grade labels {list(grade_labels)} is a CAD-RADS "
+            f"category ({', '.join(CATEGORIES)})"
+        )
+    return pairs
+
+
+def _one(output, key, what, grade_labels, label):
+    out = _entry(output, key)
+    if out.ndim not in (1, 2):
+        raise ModelError(f"model output {label}: expected shape (B, K), got {tuple(out.shape)}")
+    k = 1 if out.ndim == 1 else out.shape[1]
+    if what is None:
+        if k != 1:
+            raise InputError(
+                f"target {label!r}: entry has {k} columns; add a column, 'predicted' or "
+                f"'expected', e.g. '{key}:0'"
+            )
+        return Target(key, 0)
+    if isinstance(what, bool):
+        raise InputError(f"target: expected an int, 'predicted' or 'expected', got {what!r}")
+    if isinstance(what, int):
+        if not -k <= what < k:
+            raise InputError(f"target {label!r}: column {what} outside 0..{k - 1}")
+        return Target(key, what % k)
+    if what == "predicted":
+        if out.shape[0] != 1:
+            raise InputError("target 'predicted': resolve it for one patient at a time (B = 1)")
+        col = 0 if out.ndim == 1 else int(torch.argmax(out[0]).item())
+        return Target(key, col)
+    if what == "expected":
+        return Target(key, None, _grade_ranks(k, grade_labels))
+    try:
+        column = int(what)
+    except (TypeError, ValueError):
+        raise InputError(
+            f"target {label!r}: expected a column index, 'predicted' or 'expected'"
+        ) from None
+    return _one(output, key, column, grade_labels, label)
+
+
+def resolve_target(output, target, *, grade_labels=None):
+    """Turn a user's target into a :class:`Target`, fixed at this output.
+
+    Parameters
+    ----------
+    output : (B, K) tensor or dict of str to tensor
+        The model's output for the patient(s) being explained.
+    target : int, str or Target
+        See the module docstring.
+    grade_labels : sequence of str, optional
+        Label of each output column (CAD-RADS categories for ``"expected"``).
+
+    Examples
+    --------
+    >>> out = torch.tensor([[0.1, 2.0, -1.0]])
+    >>> resolve_target(out, "predicted").label
+    1
+    >>> round(float(resolve_target(out, "expected")(out)), 4)
+    0.9168
+    """
+    if isinstance(target, Target):
+        return target
+    if isinstance(output, dict):
+        if isinstance(target, str) and ":" in target:
+            key, what = target.split(":", 1)
+        elif isinstance(target, str) and target in output:
+            key, what = target, None
+        elif len(output) == 1:
+            key, what = next(iter(output)), target
+        else:
+            raise InputError(
+                f"target {target!r}: the model returns a dict with keys {sorted(output)}; "
+                "name one, e.g. 'key:0' or 'key:expected'"
+            )
+        if key not in output:
+            raise InputError(f"target {target!r}: no output entry {key!r}; have {sorted(output)}")
+        return _one(output, key, what, grade_labels, str(target))
+    return _one(output, None, target, grade_labels, str(target))
