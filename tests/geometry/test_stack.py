@@ -1,0 +1,76 @@
+"""sample_case: every segment of a case, ascending SCCT number, as one patient tensor."""
+
+import subprocess
+import sys
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+import SimpleITK as sitk
+
+from explain.errors import InputError
+from explain.geometry import CaseSections, Centerline, sample_case, sample_cross_sections
+
+
+def fake_case():
+    rng = np.random.default_rng(42)  # seed recorded
+    image = sitk.GetImageFromArray(rng.normal(100.0, 30.0, size=(24, 24, 24)).astype(np.float32))
+    segments = tuple(
+        SimpleNamespace(id=sid, centerline=Centerline([[x, 12.0, 3.0], [x, 12.0, 20.0]]))
+        for sid, x in ((7, 6.0), (1, 12.0), (12, 18.0))  # deliberately out of order
+    )
+    return SimpleNamespace(image=image, segments=segments)
+
+
+def test_segments_come_out_in_ascending_id_and_match_single_sampling():
+    case = fake_case()
+    sections = sample_case(case, points=8, size=5, pixel_mm=0.8, rotation_deg=15.0)
+    assert sections.segment_ids == (1, 7, 12)
+    by_id = {s.id: s for s in case.segments}
+    for sid, cs in zip(sections.segment_ids, sections.sections):
+        single = sample_cross_sections(case.image, by_id[sid].centerline, points=8, size=5,
+                                       pixel_mm=0.8, rotation_deg=15.0)
+        assert np.array_equal(cs.values, single.values)
+        assert np.array_equal(cs.points_mm, single.points_mm)
+    assert sections.values.shape == (3, 8, 5, 5) and sections.values.dtype == np.float32
+    assert "3 segments [1, 7, 12]" in repr(sections)
+
+
+def test_tensor_is_the_patient_tensor():
+    import torch
+
+    sections = sample_case(fake_case(), points=4, size=3, pixel_mm=1.0)
+    x = sections.tensor()
+    assert x.dtype == torch.float32 and tuple(x.shape) == (1, 3, 4, 3, 3)
+    assert np.array_equal(x[0].numpy(), sections.values)
+
+
+def test_geometry_imports_without_torch():
+    code = "import sys, explain.geometry; print('torch' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
+
+
+def test_bad_cases_raise_input_error():
+    case = fake_case()
+    with pytest.raises(InputError, match="case: expected an object with .image and .segments"):
+        sample_case(object(), points=4, size=3, pixel_mm=1.0)
+    with pytest.raises(InputError, match="no segments"):
+        sample_case(SimpleNamespace(image=case.image, segments=()), points=4, size=3, pixel_mm=1.0)
+    twice = SimpleNamespace(image=case.image, segments=case.segments + case.segments[:1])
+    with pytest.raises(InputError, match="ids repeat"):
+        sample_case(twice, points=4, size=3, pixel_mm=1.0)
+    bad_line = SimpleNamespace(image=case.image,
+                               segments=(SimpleNamespace(id=3, centerline=np.zeros((4, 3))),))
+    with pytest.raises(InputError, match=r"segments\[0\] \(id 3\): .centerline must be"):
+        sample_case(bad_line, points=4, size=3, pixel_mm=1.0)
+    with pytest.raises(InputError, match="case.image: expected a SimpleITK image"):
+        sample_case(SimpleNamespace(image=None, segments=case.segments), points=4, size=3,
+                    pixel_mm=1.0)
+    with pytest.raises(InputError, match="pixel_mm"):
+        sample_case(case, points=4, size=3, pixel_mm=0)
+
+
+def test_case_sections_check_pairing():
+    with pytest.raises(InputError, match="must pair up"):
+        CaseSections(segment_ids=(1, 2), sections=())
