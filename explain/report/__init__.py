@@ -1,0 +1,26 @@
+"""Per-patient reports: explain one case and write what a reader opens.
+
+Public names
+------------
+explain_case, Explanation, SegmentResult, DEFAULT_METHODS
+    explanation.py: run every step on one case; the result and its ``write``.
+run_demo
+    demo.py: a phantom case explained with the bundled reference model.
+
+Files written (docs/report-format.md): report.json (jsonout.py), segments.csv (tables.py),
+attributions.npz and overlays (files.py), figures/*.png (figures.py), report.html (html.py).
+"""
+
+from __future__ import annotations
+
+from .explanation import DEFAULT_METHODS, Explanation, SegmentResult, explain_case
+
+__all__ = ["DEFAULT_METHODS", "Explanation", "SegmentResult", "explain_case", "run_demo"]
+
+
+def __getattr__(name):
+    if name == "run_demo":
+        from .demo import run_demo
+
+        return run_demo
+    raise AttributeError(f"module 'explain.report' has no attribute {name!r}")

@@ -1,0 +1,205 @@
+"""report.html: one self-contained page built from the report dict.
+
+Images are embedded as base64 ``data:`` URIs; there are no scripts, external fonts, style
+sheets or links, so the page works offline. Every string that came from the inputs (case id,
+paths, model name, settings) is escaped with :func:`html.escape`.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import math
+
+__all__ = ["report_html"]
+
+_STYLE = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Helvetica,Arial,sans-serif;margin:0;
+background:#f7f7f5;color:#1d1d1d;line-height:1.45}
+main{max-width:1100px;margin:0 auto;padding:1.2em 1.6em 3em}
+h1{font-size:1.5em;margin:.4em 0 .2em}h2{font-size:1.15em;margin:1.6em 0 .5em;
+border-bottom:1px solid #cfcfcf;padding-bottom:.2em}
+.caution{background:#fff4d6;border-left:5px solid #d89a00;padding:.6em .9em;margin:.8em 0}
+.answer{background:#fff;border:1px solid #d9d9d9;padding:.8em 1em;font-size:1.05em}
+.answer b{color:#8b1e1e}
+table{border-collapse:collapse;background:#fff;font-size:.88em;margin:.3em 0}
+th,td{border:1px solid #d9d9d9;padding:.25em .55em;text-align:left;vertical-align:top}
+th{background:#eceae4}td.n{text-align:right;font-variant-numeric:tabular-nums}
+tr.culprit td{background:#fde9e4;font-weight:600}
+figure{margin:1em 0;background:#fff;border:1px solid #d9d9d9;padding:.5em}
+figure img{max-width:100%;height:auto;display:block}
+figcaption{font-size:.88em;color:#444;margin-top:.3em}
+code{font-size:.92em}
+.wide{overflow-x:auto}
+"""
+
+_CAPTIONS = {
+    "contributions": "Contribution of each segment to the target: exact Shapley value over "
+                     "segments and leave-one-out (target units).",
+    "tree": "Schematic coronary tree (our own drawing, not to scale) coloured by Shapley value; "
+            "the star marks the peak of the first method along the culprit.",
+    "culprit": "The culprit segment straightened: two longitudinal cuts through its "
+               "cross-section stack (through the peak pixel) and the cross-section at the peak, "
+               "CT in grey with the map over it.",
+    "profiles": "Sum of positive attribution per cross-section along every vessel (one scale "
+                "for all segments); reference lesions shaded when the case has them.",
+}
+
+
+def _e(value):
+    return html.escape(str(value), quote=True)
+
+
+def _num(value, fmt=".4g"):
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "&ndash;"
+    return _e(format(value, fmt))
+
+
+def _vec(values, fmt=".1f"):
+    if values is None:
+        return "&ndash;"
+    return "(" + ", ".join(_num(v, fmt) for v in values) + ")"
+
+
+def _table(header, rows, *, classes=None):
+    head = "".join(f"<th>{_e(h)}</th>" for h in header)
+    body = []
+    for index, row in enumerate(rows):
+        cls = f' class="{classes[index]}"' if classes and classes[index] else ""
+        body.append(f"<tr{cls}>" + "".join(row) + "</tr>")
+    return f'<div class="wide"><table><tr>{head}</tr>{"".join(body)}</table></div>'
+
+
+def _td(text, numeric=False):
+    return f'<td class="n">{text}</td>' if numeric else f"<td>{text}</td>"
+
+
+def _target_words(label):
+    if isinstance(label, int):
+        return f"output column {_e(label)}"
+    return f"output {_e(label)}"
+
+
+def _where_rows(report):
+    rows = []
+    for method, w in report["culprit"]["where"].items():
+        ext = w.get("extent_mm")
+        rows.append([_td(_e(method)), _td(_num(w.get("arc_mm"), ".1f"), True),
+                     _td("&ndash;" if ext is None else f"{_num(ext[0], '.1f')} &ndash; "
+                         f"{_num(ext[1], '.1f')}", True),
+                     _td(_vec(w.get("xyz_mm"))), _td(_vec(w.get("voxel"), "d"))])
+    return rows
+
+
+def _segment_table(report):
+    methods = report["settings"]["methods"]
+    header = ["segment", "name", "territory", "Shapley", "leave-one-out", "gradient",
+              "channels won", "ref. stenosis %"] + [f"{m} peak mm" for m in methods]
+    rows, classes = [], []
+    culprit = report["culprit"]["segment_id"]
+    for s in report["segments"]:
+        row = [_td(f"{_e(s['id'])} ({_e(s['abbr'])})"), _td(_e(s["name"])), _td(_e(s["territory"])),
+               _td(_num(s["shapley"]), True), _td(_num(s["leave_one_out"]), True),
+               _td(_num(s["gradient"]), True), _td(_e(len(s["winning_channels"])), True),
+               _td(_num(s["reference_stenosis_percent"], "g"), True)]
+        for m in methods:
+            peak = s["peaks"].get(m)
+            row.append(_td(_num(None if peak is None else peak["arc_mm"], ".1f"), True))
+        rows.append(row)
+        classes.append("culprit" if s["id"] == culprit else "")
+    return _table(header, rows, classes=classes)
+
+
+def _figures(report, images):
+    parts = []
+    for name in report["files"]["figures"]:
+        data = images.get(name)
+        if data is None:
+            continue
+        stem = name.rsplit("/", 1)[-1].rsplit(".", 1)[0]
+        kind, _, method = stem.partition("_")
+        caption = _CAPTIONS.get(kind, "")
+        title = f"{method}: " if method else ""
+        uri = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+        parts.append(f'<figure><img src="{uri}" alt="{_e(stem)}">'
+                     f"<figcaption><b>{_e(title)}</b>{_e(caption)} "
+                     f"(<code>{_e(name)}</code>)</figcaption></figure>")
+    return "\n".join(parts)
+
+
+def _key_values(mapping):
+    rows = []
+    for key, value in mapping.items():
+        if isinstance(value, (list, tuple)):
+            value = ", ".join(str(v) for v in value)
+        rows.append([_td(_e(key)), _td(_e("null" if value is None else value))])
+    return _table(["setting", "value"], rows)
+
+
+def report_html(report, images):
+    """The page as text.
+
+    Parameters
+    ----------
+    report : dict
+        The content of report.json (:func:`explain.report.jsonout.explanation_dict`).
+    images : dict of str to bytes
+        PNG bytes of each figure, keyed by its relative path in ``report["files"]["figures"]``.
+    """
+    pred, target, culprit = report["prediction"], report["target"], report["culprit"]
+    ref = report.get("reference")
+    scores = [[_td(_e(label)), _td(_num(value), True),
+               _td(_num(pred["probabilities"].get(label), ".3f"), True)]
+              for label, value in pred["scores"].items()]
+    reference = ""
+    if ref is not None:
+        lesions = ", ".join(f"segment {_e(les['segment'])} {_num(les['start_mm'], '.1f')}&ndash;"
+                            f"{_num(les['end_mm'], '.1f')} mm" for les in ref["lesions"]) or "none"
+        reference = (f"<p>Reference given with the case: grade {_e(ref['grade'])}; "
+                     f"lesions: {lesions}.</p>")
+    first = next(iter(culprit["where"].values()), {})
+    where = "" if first.get("arc_mm") is None else (
+        f" Its map peaks at <b>{_num(first['arc_mm'], '.1f')} mm</b> from the segment's start "
+        f"({_e(next(iter(culprit['where'])))}).")
+    cautions = "".join(f"<li>{_e(c)}</li>" for c in report["cautions"])
+    notes = "".join(f"<li>{_e(n)}</li>" for n in report.get("notes", []))
+    files = report["files"]
+    file_list = [files["report"], files["table"], files["attributions"],
+                 *files["overlays"].values(), *files["figures"]]
+    model = report["model"]
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<title>culprit-lens report: {_e(report['case_id'])}</title>
+<style>{_STYLE}</style></head>
+<body><main>
+<h1>Case {_e(report['case_id'])}</h1>
+<div class="caution"><b>Caution.</b> {_e(report['cautions'][0])}</div>
+<div class="answer">The model graded this case <b>CAD-RADS {_e(pred['grade'])}</b>.
+The segment that drove the target ({_target_words(target['label'])}, value
+{_num(target['value'])}) is
+<b>{_e(culprit['segment_id'])} ({_e(culprit['segment_abbr'])}, {_e(culprit['segment_name'])})</b>,
+with a Shapley value of {_num(culprit['shapley'])} and a margin of {_num(culprit['margin'])}
+over the next segment.{where}</div>
+{reference}
+<h2>Where along the culprit</h2>
+{_table(["method", "peak (mm of arc)", "half-peak extent (mm)", "peak x, y, z (mm)",
+         "peak voxel i, j, k"], _where_rows(report))}
+<h2>Prediction</h2>
+<p>Model <code>{_e(model.get('name'))}</code>, weights hash <code>{_e(model.get('weights_hash'))}</code>.</p>
+{_table(["output column", "score", "softmax probability"], scores)}
+<h2>Segments</h2>
+{_segment_table(report)}
+<h2>Figures</h2>
+{_figures(report, images)}
+<h2>Settings</h2>
+{_key_values(report['settings'])}
+<h2>Files</h2>
+<ul>{''.join(f'<li><code>{_e(f)}</code></li>' for f in file_list)}</ul>
+<h2>Cautions</h2>
+<ul>{cautions}</ul>
+{f'<h2>Notes</h2><ul>{notes}</ul>' if notes else ''}
+<p><small>Report format {_e(report['format'])}; case file <code>{_e(report['case']['path'])}</code>.</small></p>
+</main></body></html>
+"""

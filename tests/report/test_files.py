@@ -1,0 +1,177 @@
+"""The files an explanation writes, checked with outside readers.
+
+Outside references: SimpleITK reads the overlays back (their geometry must be the CT's,
+exactly), Python's csv and json modules read the table and the report, numpy reads the npz,
+and the half-peak extent of the Gaussian blobs (FWHM = 2 sqrt(2 ln 2) sigma, elementary).
+"""
+
+import csv
+import json
+import math
+
+import numpy as np
+import pytest
+import SimpleITK as sitk
+
+from explain import CAUTION
+from explain.errors import InputError
+
+
+def test_every_file_is_written(written_report):
+    out, html = written_report
+    assert html == out / "report.html"
+    names = {p.relative_to(out).as_posix() for p in out.rglob("*") if p.is_file()}
+    assert {"report.json", "segments.csv", "attributions.npz", "report.html",
+            "overlays/integrated_gradients.nii.gz", "overlays/occlusion.nii.gz",
+            "overlays/culprit.nii.gz", "figures/contributions.png", "figures/tree.png",
+            "figures/culprit_occlusion.png", "figures/profiles_integrated_gradients.png"} <= names
+    # Nothing of the staging folder is left beside the output.
+    assert [p.name for p in out.parent.iterdir()] == ["out"]
+
+
+def test_report_json_fields(written_report, synthetic_explanation):
+    out, _ = written_report
+    report = json.loads((out / "report.json").read_text())
+    assert report["format"] == "culprit-lens-report/1"
+    assert report["case_id"] == "synthetic-1"
+    assert set(report["model"]) >= {"name", "weights_hash"}
+    assert report["settings"]["seed"] == 0
+    assert set(report["prediction"]) >= {"grade", "scores"}
+    assert report["target"]["requested"] == "predicted"
+    assert report["culprit"]["segment_id"] == 7
+    assert report["culprit"]["segment_name"] == "mid left anterior descending"
+    assert report["culprit"]["margin"] == pytest.approx(1.05)
+    assert CAUTION in report["cautions"]
+    assert [s["id"] for s in report["segments"]] == [1, 6, 7]
+    for s in report["segments"]:
+        assert set(s) >= {"id", "name", "territory", "winning_channels", "gradient",
+                          "leave_one_out", "shapley", "peaks", "extent_mm"}
+        for method in ("integrated_gradients", "occlusion"):
+            assert set(s["peaks"][method]) >= {"arc_mm", "xyz_mm", "voxel", "value"}
+            assert len(s["extent_mm"][method]) == 2
+    # winners [2, 2, 0, 1, 2, 2]: segment index 2 (id 7) won channels 0, 1, 4, 5.
+    assert report["segments"][2]["winning_channels"] == [0, 1, 4, 5]
+    # The report equals the in-memory dict (apart from the figure list added on writing).
+    again = synthetic_explanation.to_dict()
+    again["files"]["figures"] = report["files"]["figures"]
+    assert again == report
+
+
+def test_peaks_where_the_hand_made_maps_peak(synthetic_explanation, synth):
+    culprit = synthetic_explanation.culprit
+    cs = synthetic_explanation.sections.sections[synthetic_explanation.culprit_index]
+    step = cs.arc_mm[1] - cs.arc_mm[0]
+    loc = culprit.locations["integrated_gradients"]
+    assert abs(loc.peak.arc_mm - synth.BLOB_ARC_MM) <= step / 2
+    # The blob's pixel centre is [5, 6] in every cross-section.
+    assert (loc.peak.row, loc.peak.col) == (5, 6)
+    # Profile along the arc is a Gaussian of sigma 2 mm: its FWHM is 2 sqrt(2 ln 2) 2 mm.
+    start, end = loc.extent_mm
+    assert end - start == pytest.approx(2 * math.sqrt(2 * math.log(2)) * 2.0, abs=0.25)
+    # The peak voxel is the one SimpleITK gives for the peak pixel's position.
+    image = synthetic_explanation.case.image
+    assert loc.peak.voxel == image.TransformPhysicalPointToIndex(loc.peak.xyz_mm)
+
+
+def test_overlays_have_the_ct_geometry(written_report, synthetic_explanation):
+    out, _ = written_report
+    ct = synthetic_explanation.case.image
+    for name in ("integrated_gradients", "occlusion", "culprit"):
+        img = sitk.ReadImage(str(out / "overlays" / f"{name}.nii.gz"))
+        assert img.GetSize() == ct.GetSize()
+        np.testing.assert_allclose(img.GetOrigin(), ct.GetOrigin(), atol=1e-5)
+        np.testing.assert_allclose(img.GetSpacing(), ct.GetSpacing(), atol=1e-6)
+        np.testing.assert_allclose(img.GetDirection(), ct.GetDirection(), atol=1e-6)
+
+
+def test_overlay_peak_voxel_is_next_to_the_map_peak(written_report, synthetic_explanation):
+    out, _ = written_report
+    img = sitk.ReadImage(str(out / "overlays" / "integrated_gradients.nii.gz"))
+    values = sitk.GetArrayFromImage(img)
+    k, j, i = np.unravel_index(int(np.argmax(values)), values.shape)
+    peak = synthetic_explanation.culprit.locations["integrated_gradients"].peak
+    got = np.array(img.TransformIndexToPhysicalPoint((int(i), int(j), int(k))))
+    # Within a voxel diagonal plus a cross-section step of the peak pixel.
+    assert np.linalg.norm(got - np.array(peak.xyz_mm)) < 1.5
+
+
+def test_culprit_label_covers_the_painted_lumen(written_report, synthetic_explanation):
+    out, _ = written_report
+    label = sitk.GetArrayFromImage(sitk.ReadImage(str(out / "overlays" / "culprit.nii.gz")))
+    ct = sitk.GetArrayFromImage(synthetic_explanation.case.image)
+    assert set(np.unique(label)) == {0, 7}
+    # The label is the culprit's tube (radius 1.4 mm, same as painted): all of it is lumen.
+    assert (ct[label == 7] == 350.0).all()
+    # ...and it is a large part of the painted segment 7 lumen (the rest belongs to 1 and 6).
+    assert (label == 7).sum() > 0.25 * (ct == 350.0).sum()
+
+
+def test_attributions_npz(written_report, synthetic_explanation):
+    out, _ = written_report
+    with np.load(out / "attributions.npz") as data:
+        assert data["segment_ids"].tolist() == [1, 6, 7]
+        for method in ("integrated_gradients", "occlusion"):
+            assert data[method].dtype == np.float32
+            assert data[method].shape == (3, 20, 11, 11)
+            np.testing.assert_array_equal(data[method], synthetic_explanation.maps[method])
+        assert data["points_mm"].shape == (3, 20, 11, 11, 3)
+        np.testing.assert_allclose(data["points_mm"][2],
+                                   synthetic_explanation.sections.sections[2].points_mm,
+                                   atol=1e-4)
+
+
+def test_segments_csv(written_report, synth):
+    out, _ = written_report
+    with open(out / "segments.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    assert [r["id"] for r in rows] == ["1", "6", "7"]
+    assert [r["culprit"] for r in rows] == ["no", "no", "yes"]
+    assert float(rows[2]["shapley"]) == pytest.approx(1.2)
+    assert rows[2]["reference_stenosis_percent"] == "60"
+    assert rows[1]["reference_stenosis_percent"] == ""
+    assert float(rows[2]["occlusion_peak_arc_mm"]) == pytest.approx(synth.BLOB_ARC_MM, abs=0.5)
+
+
+def test_existing_output_refused_unless_force(tmp_path, synth):
+    explanation = synth.make_explanation(methods=("occlusion",))
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "keep.txt").write_text("mine")
+    with pytest.raises(InputError, match="not empty"):
+        explanation.write(out)
+    assert (out / "keep.txt").read_text() == "mine"
+    explanation.write(out, force=True)
+    assert not (out / "keep.txt").exists()
+    assert (out / "report.html").exists()
+
+
+def test_nothing_half_written_after_an_error(tmp_path, monkeypatch, synth):
+    explanation = synth.make_explanation(methods=("occlusion",))
+    import explain.report.files as files
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("figure drawing failed")
+
+    monkeypatch.setattr(files, "write_figures", broken)
+    with pytest.raises(RuntimeError, match="figure drawing failed"):
+        explanation.write(tmp_path / "out")
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_lesion_reference_in_report(written_report, synth):
+    out, _ = written_report
+    report = json.loads((out / "report.json").read_text())
+    segment, start, end = synth.LESION
+    assert report["reference"]["lesions"] == [
+        {"segment": segment, "start_mm": start, "end_mm": end}]
+
+
+def test_input_strings_are_escaped(tmp_path, synth):
+    case = synth.make_case('<script>alert("x")</script>&co', path=tmp_path / "<b>case</b>.json")
+    out = tmp_path / "out"
+    synth.make_explanation(case, methods=("occlusion",)).write(out)
+    page = (out / "report.html").read_text()
+    assert "<script>" not in page and "<b>case</b>" not in page
+    assert "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt;&amp;co" in page
+    # report.json keeps the text as it was.
+    assert json.loads((out / "report.json").read_text())["case_id"].startswith("<script>")
