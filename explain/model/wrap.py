@@ -24,7 +24,7 @@ Then ``encode`` runs the forward in an "encode" mode that stops at that reductio
 private exception carrying its input, still attached to the autograd graph, reordered to
 ``(B, S, C)``; ``head`` runs the forward on a small dummy input in a "head" mode that returns the
 given pooled tensor in place of the reduction's output (the part before the max runs without
-autograd and its result is thrown away). The reduction is recognised by its call order, so the
+autograd and without the modules' forward hooks, and its result is thrown away). The reduction is recognised by its call order, so the
 model's control flow must not depend on the data.
 
 Ties
@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import hashlib
 import math
+from collections import OrderedDict
 
 import torch
 from torch.overrides import TorchFunctionMode
@@ -270,11 +271,18 @@ class WrappedModel:
         grad = torch.is_grad_enabled()
         torch.set_grad_enabled(False)
         mode = _Split(index, pooled=pooled, grad=grad)
+        # the replay's encoder pass is not the patient's: hooks (captum's layer hooks) must not
+        # see it, so the modules' own forward hooks are set aside while it runs
+        saved = [(m, m._forward_hooks, m._forward_pre_hooks) for m in self.module.modules()]
         try:
+            for m, _, _ in saved:
+                m._forward_hooks, m._forward_pre_hooks = OrderedDict(), OrderedDict()
             with mode:
                 out = self.module(dummy)
         finally:
             torch.set_grad_enabled(grad)
+            for m, hooks, pre in saved:
+                m._forward_hooks, m._forward_pre_hooks = hooks, pre
         if mode.count <= index:
             raise ModelError(f"{self.name}: the segment max was not reached when replaying the head")
         return out
