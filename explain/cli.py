@@ -50,11 +50,12 @@ def _explain_options(args):
 
 def _cmd_explain(args):
     from .case import load_case
+
+    progress = _say(args.quiet)
+    case = load_case(args.case)  # the case first: a bad case fails before torch is imported
     from .model import load_model
     from .report import explain_case
 
-    progress = _say(args.quiet)
-    case = load_case(args.case)
     model = load_model(args.model, weights=args.weights)
     explanation = explain_case(model, case, progress=progress, **_explain_options(args))
     html = explanation.write(args.out, force=args.force)
