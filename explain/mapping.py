@@ -8,7 +8,8 @@ SimpleITK reports it). This module reduces such a map to
   in it (``aggregate="positive"``, the default) or of its absolute value (``"absolute"``);
 - its **peak**: the cross-section with the largest profile value (the first one on ties, i.e.
   the most proximal), and inside it the pixel of the largest value (largest absolute value
-  for ``"absolute"``); reported as arc mm from the segment's start, physical x, y, z mm and
+  for ``"absolute"``); pixels tied with it (within a relative 1e-6, as happens inside one
+  occlusion window) are resolved toward the cross-section's centre, the centerline; reported as arc mm from the segment's start, physical x, y, z mm and
   voxel i, j, k (SimpleITK ``TransformPhysicalPointToIndex``: the nearest voxel centre);
 - its **extent**: the stretch of arc around the peak where the profile stays at or above half
   the peak value, contiguous with the peak, with the two half-value crossings found by linear
@@ -199,6 +200,16 @@ def half_peak_extent(profile_, arc_mm, peak_index):
     return start, end
 
 
+def _central_argmax(section, rtol=1e-6):
+    """Pixel of the largest value; among (near-)ties the one closest to the centre."""
+    best = section.max()
+    rows, cols = np.nonzero(section >= best - rtol * abs(best))
+    h, w = section.shape
+    d2 = (rows - (h - 1) / 2) ** 2 + (cols - (w - 1) / 2) ** 2
+    pick = int(np.argmin(d2))  # first (row-major) among equally central ties
+    return int(rows[pick]), int(cols[pick])
+
+
 def find_peak(map_, points_mm, arc_mm, *, image, aggregate="positive"):
     """The peak of a map: cross-section of the largest profile value, pixel of the largest value.
 
@@ -225,7 +236,7 @@ def find_peak(map_, points_mm, arc_mm, *, image, aggregate="positive"):
         return None
     index = int(np.argmax(p))
     section = values[index] if aggregate == "positive" else np.abs(values[index])
-    row, col = np.unravel_index(int(np.argmax(section)), section.shape)
+    row, col = _central_argmax(section)
     xyz = tuple(float(c) for c in np.asarray(points_mm)[index, row, col])
     voxel = tuple(int(c) for c in image.TransformPhysicalPointToIndex(xyz))
     return Peak(index=index, row=int(row), col=int(col), arc_mm=float(np.asarray(arc_mm)[index]),

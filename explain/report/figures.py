@@ -56,6 +56,10 @@ def _units(method):
     return METHOD_UNITS.get(method, "attribution")
 
 
+def _aggregate(explanation, method):
+    return explanation.segments[0].locations[method].aggregate
+
+
 def _lesions_by_segment(explanation):
     ref = getattr(explanation.case, "reference", None)
     out = {}
@@ -111,7 +115,8 @@ def profile_figure(explanation, method):
         ax.grid(axis="y", color="#e5e5e5", lw=0.6)
         ax.spines[["top", "right"]].set_visible(False)
     axes[-1].set_xlabel("arc length, segments laid end to end (mm); dashed lines: segment ends")
-    fig.suptitle(f"{method}: sum of positive attribution per cross-section ({_units(method)})"
+    what = "absolute" if _aggregate(e, method) == "absolute" else "positive"
+    fig.suptitle(f"{method}: sum of {what} attribution per cross-section ({_units(method)})"
                  + ("; shaded: reference lesions" if lesions else ""), fontsize=10)
     fig.tight_layout(rect=(0, 0, 1, 0.97))
     return fig
@@ -146,8 +151,8 @@ def culprit_figure(explanation, method):
     arc = cs.arc_mm
     extent_long = (arc[0], arc[-1])
 
-    fig = _new_figure(11.0, 6.2)
-    grid = fig.add_gridspec(2, 3, width_ratios=(2.4, 1.0, 0.06), hspace=0.45, wspace=0.25)
+    fig = _new_figure(11.5, 6.2)
+    grid = fig.add_gridspec(2, 3, width_ratios=(2.4, 1.0, 0.05), hspace=0.45, wspace=0.22)
     cuts = ((ct[:, row, :].T, m[:, row, :].T, (-half_w, half_w), col,
              f"cut along the in-plane u axis through pixel row {row}"),
             (ct[:, :, col].T, m[:, :, col].T, (-half_h, half_h), row,
@@ -186,12 +191,13 @@ def culprit_figure(explanation, method):
     ax.set_xlabel("u (mm)")
     ax.set_ylabel("v (mm)")
     cax = fig.add_subplot(grid[:, 2])
-    fig.colorbar(mappable, cax=cax, label=f"{method} ({_units(method)})")
-    where = "no positive attribution" if peak is None else (
+    bar = fig.colorbar(mappable, cax=cax)
+    bar.set_label(f"{method} per pixel ({_units(method)})", fontsize=9)
+    where = "no attribution to locate" if peak is None else (
         f"peak at {peak.arc_mm:.1f} mm, voxel {peak.voxel}")
     fig.suptitle(f"Culprit {seg.label}, {method}: {where}; CT window "
                  f"{CT_WINDOW_HU[0]:g} to {CT_WINDOW_HU[1]:g} HU", fontsize=10)
-    fig.subplots_adjust(left=0.07, right=0.93, top=0.9, bottom=0.09)
+    fig.subplots_adjust(left=0.06, right=0.9, top=0.9, bottom=0.09)
     return fig
 
 

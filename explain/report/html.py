@@ -41,7 +41,8 @@ _CAPTIONS = {
     "culprit": "The culprit segment straightened: two longitudinal cuts through its "
                "cross-section stack (through the peak pixel) and the cross-section at the peak, "
                "CT in grey with the map over it.",
-    "profiles": "Sum of positive attribution per cross-section along every vessel (one scale "
+    "profiles": "Sum of positive attribution (of absolute values for gradient and smoothgrad) "
+                "per cross-section along every vessel (one scale "
                 "for all segments); reference lesions shaded when the case has them.",
 }
 

@@ -177,3 +177,20 @@ def test_lumen_label_radius_per_point_and_outside():
         lumen_label(image, line, -1.0)
     with pytest.raises(InputError, match="centerline_mm"):
         lumen_label(image, line[:1])
+
+
+def test_tied_peak_pixels_resolve_toward_the_centerline():
+    # An occlusion-like map: one window's drop spread evenly over pixels [0:6, 0:6] of a 9 x 9
+    # cross-section; the peak pixel is the tied pixel nearest the centre [4, 4].
+    image = make_image()
+    pts, arc, _ = straight_stack([0, 10, 35], [0, 0, 1], points=5, size=9, pixel_mm=0.5,
+                                 step_mm=1.0)
+    m = np.zeros((5, 9, 9))
+    m[2, 0:6, 0:6] = 0.7
+    peak = find_peak(m, pts, arc, image=image)
+    assert (peak.index, peak.row, peak.col) == (2, 4, 4)
+    m[2, 0:4, 0:4] = 0.7
+    m[2, 4:, :] = 0.0
+    m[2, :, 4:] = 0.0
+    peak = find_peak(m, pts, arc, image=image)
+    assert (peak.row, peak.col) == (3, 3)

@@ -12,6 +12,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 import SimpleITK as sitk
+import torch
 
 from explain.anatomy import segment_info
 from explain.case import Case, Lesion, Reference, Segment
@@ -40,7 +41,8 @@ def _tube_points(image, start_index, end_index):
     return a + np.linspace(0, 1, 12)[:, None] * (b - a)
 
 
-def make_case(case_id="synthetic-1", *, path=Path("/nowhere/case.json")):
+def make_case(case_id="synthetic-1", *, path=Path("/nowhere/case.json"), lesion_hu=None):
+    """The case; with ``lesion_hu`` the lumen of segment 7 over the LESION arc holds that HU."""
     image = _image()
     tubes = {1: ((10, 10, 8), (12, 48, 20)), 6: ((30, 8, 10), (34, 30, 40)),
              7: ((34, 30, 40), (50, 52, 50))}
@@ -56,6 +58,10 @@ def make_case(case_id="synthetic-1", *, path=Path("/nowhere/case.json")):
         t = np.clip(((xyz - a) @ (b - a)) / ((b - a) @ (b - a)), 0, 1)
         d = np.linalg.norm(xyz - (a + t[..., None] * (b - a)), axis=-1)
         values[np.transpose(d <= 1.4, (2, 1, 0))] = 350.0
+        if lesion_hu is not None and sid == LESION[0]:
+            arc = t * np.linalg.norm(b - a)
+            narrow = (d <= 1.4) & (arc >= LESION[1]) & (arc <= LESION[2])
+            values[np.transpose(narrow, (2, 1, 0))] = lesion_hu
         info = segment_info(sid)
         segments.append(Segment(id=sid, abbr=info.abbr, name=info.name, territory=info.territory,
                                 centerline=Centerline(pts), radius_mm=np.full(len(pts), 1.4),
@@ -103,6 +109,24 @@ def make_explanation(case=None, *, methods=("integrated_gradients", "occlusion")
         maps=maps)
 
 
+class DarkCentre(torch.nn.Module):
+    """A tiny protocol model with a known answer: one feature per segment, how dark its lumen
+    centre is on average along it (((350 - HU) / 350) squared at the centre pixel, mean over
+    cross-sections); the head scales it by 10 into column 1. The culprit is the segment with the
+    darkened lumen, and the gradient lies on the centre pixels of the darkened cross-sections."""
+
+    def encode_segments(self, x):
+        h, w = x.shape[-2:]
+        centre = x[..., h // 2, w // 2]                      # (B, S, N)
+        return (((350.0 - centre) / 350.0) ** 2).mean(dim=2, keepdim=True)
+
+    def head(self, pooled):
+        return torch.cat([torch.zeros_like(pooled), 10.0 * pooled], dim=1)
+
+    def forward(self, x):
+        return self.head(self.encode_segments(x).amax(dim=1))
+
+
 @pytest.fixture(scope="session")
 def synthetic_explanation():
     return make_explanation()
@@ -120,4 +144,5 @@ def synth():
     """The builders and constants of this file (test modules cannot import conftest under
     --import-mode=importlib)."""
     return SimpleNamespace(make_case=make_case, make_explanation=make_explanation,
+                           DarkCentre=DarkCentre,
                            LESION=LESION, BLOB_ARC_MM=BLOB_ARC_MM)
