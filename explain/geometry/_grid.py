@@ -70,59 +70,98 @@ class Grid:
 
     def index_of(self, points_mm):
         """Continuous index (i, j, k) of physical points, shape ``(..., 3)``."""
-        return (np.asarray(points_mm, dtype=np.float64) - self.origin) @ self.index_matrix.T
+        d = np.asarray(points_mm, dtype=np.float64) - self.origin
+        m = self.index_matrix
+        # Written out per axis: a tall (P, 3) @ (3, 3) product goes to multi-threaded BLAS,
+        # which is slower than this on a busy machine.
+        out = np.empty(d.shape)
+        for axis in range(3):
+            np.multiply(d[..., 0], m[axis, 0], out=out[..., axis])
+            out[..., axis] += d[..., 1] * m[axis, 1]
+            out[..., axis] += d[..., 2] * m[axis, 2]
+        return out
 
-    def corners(self, ci, cj, ck):
+    def corners(self, ci, cj, ck, *, dtype=np.float32):
         """Floor corner, trilinear weights and inside mask of continuous indices.
 
         Parameters
         ----------
-        ci, cj, ck : (P,) float64
+        ci, cj, ck : float64 arrays of one shape
             Continuous index along i, j, k.
 
         Returns
         -------
-        base : (P,) intp
+        base : intp array, same shape
             Flat index of the lower corner (clipped inside the grid).
         offsets : (3,) int
             Flat step to the upper corner along i, j, k (0 along an axis of one voxel).
-        wi, wj, wk : (P,) float32
+        wi, wj, wk : arrays of ``dtype`` (float32 by default), same shape
             Weight of the upper corner along each axis.
-        inside : (P,) bool
-            Index within ``[0, size - 1]`` (up to ``INDEX_TOLERANCE``) on all three axes.
+        inside : bool array or None
+            Index within ``[0, size - 1]`` (up to ``INDEX_TOLERANCE``) on all three axes;
+            None when every point is inside.
         """
         ni, nj, nk = (int(n) for n in self.size)
-        inside = np.ones(ci.shape, dtype=bool)
+        inside = None
         floors, weights = [], []
         for c, n in ((ci, ni), (cj, nj), (ck, nk)):
-            inside &= (c >= -INDEX_TOLERANCE) & (c <= n - 1 + INDEX_TOLERANCE)
-            c = np.clip(c, 0.0, n - 1)
+            # Range checks first: the masks and clipping are only paid for when needed.
+            low, high = float(c.min()), float(c.max())
+            if low < -INDEX_TOLERANCE or high > n - 1 + INDEX_TOLERANCE:
+                ok = (c >= -INDEX_TOLERANCE) & (c <= n - 1 + INDEX_TOLERANCE)
+                inside = ok if inside is None else inside & ok
+            if low < 0.0 or high > n - 1:
+                c = np.clip(c, 0.0, n - 1)
             # c >= 0, so truncation is floor; the top voxel uses the cell below it (weight 1).
-            f = np.minimum(c.astype(np.intp), max(n - 2, 0))
+            f = c.astype(np.intp)
+            if high >= n - 1:
+                np.minimum(f, max(n - 2, 0), out=f)
+            w = np.empty(c.shape, dtype=dtype)
+            np.subtract(c, f, out=w, casting="same_kind")
             floors.append(f)
-            weights.append((c - f).astype(np.float32))
+            weights.append(w)
         fi, fj, fk = floors
-        base = (fk * nj + fj) * ni + fi
+        fk *= ni * nj
+        fj *= ni
+        fk += fj
+        fk += fi
         offsets = (1 if ni > 1 else 0, ni if nj > 1 else 0, ni * nj if nk > 1 else 0)
-        return base, offsets, weights[0], weights[1], weights[2], inside
+        return fk, offsets, weights[0], weights[1], weights[2], inside
+
+
+def _lerp(a, b, w):
+    """``a + w (b - a)``, written into ``b`` (saves allocations on large arrays)."""
+    np.subtract(b, a, out=b)
+    b *= w
+    b += a
+    return b
 
 
 def trilinear(flat, base, offsets, wi, wj, wk):
-    """Trilinear interpolation from the eight corners (float32 throughout)."""
+    """Trilinear interpolation from the eight corners (float32 throughout).
+
+    Parameters
+    ----------
+    flat : (V,) float32
+        Voxels in C order.
+    base, offsets, wi, wj, wk
+        As returned by :meth:`Grid.corners`.
+
+    Returns
+    -------
+    float32 array shaped like ``base``
+    """
     di, dj, dk = offsets
-    b1 = base + dk
-    v000 = flat.take(base)
-    v100 = flat.take(base + di)
-    v010 = flat.take(base + dj)
-    v110 = flat.take(base + (di + dj))
-    v001 = flat.take(b1)
-    v101 = flat.take(b1 + di)
-    v011 = flat.take(b1 + dj)
-    v111 = flat.take(b1 + (di + dj))
-    c00 = v000 + wi * (v100 - v000)
-    c10 = v010 + wi * (v110 - v010)
-    c01 = v001 + wi * (v101 - v001)
-    c11 = v011 + wi * (v111 - v011)
-    c0 = c00 + wj * (c10 - c00)
-    c1 = c01 + wj * (c11 - c01)
-    return c0 + wk * (c1 - c0)
+
+    def corner(offset):
+        # Taking `base` from a view shifted by `offset` reads flat[base + offset] without
+        # forming the sum (base + offset <= size - 1 by construction of the corners).
+        return flat[offset:].take(base)
+
+    c0 = _lerp(
+        _lerp(corner(0), corner(di), wi), _lerp(corner(dj), corner(di + dj), wi), wj
+    )
+    c1 = _lerp(
+        _lerp(corner(dk), corner(dk + di), wi), _lerp(corner(dk + dj), corner(dk + di + dj), wi), wj
+    )
+    return _lerp(c0, c1, wk)

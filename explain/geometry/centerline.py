@@ -4,7 +4,7 @@ A :class:`Centerline` holds the points of one segment, proximal to distal, in mm
 image's physical space. Everything measured along it (arc length, resampling, positions)
 uses one smooth interpolant: a cubic spline (scipy ``CubicSpline``, not-a-knot ends)
 parametrised by cumulative chord length. Arc length along that spline is integrated with
-8-point Gauss-Legendre quadrature per interval and inverted with a safeguarded Newton
+8-point Gauss-Legendre quadrature on four panels per interval and inverted with a safeguarded Newton
 iteration, so resampled points are evenly spaced on the smooth curve, not on the polyline.
 
 Frames are rotation-minimizing (no twist about the tangent), built with the double-reflection
@@ -29,6 +29,7 @@ __all__ = ["Centerline", "rotation_minimizing_frames", "default_initial_normal"]
 DUPLICATE_MM = 1e-6
 
 _GAUSS_X, _GAUSS_W = np.polynomial.legendre.leggauss(8)
+_PANELS = 4  # quadrature panels per spline interval
 
 
 def _as_points(points, name):
@@ -203,7 +204,9 @@ class Centerline:
     [0.0, 1.0, 2.0, 3.0, 4.0, 5.0]
     """
 
-    __slots__ = ("_points", "_notes", "_param", "_spline", "_dspline", "_knot_arc")
+    __slots__ = (
+        "_points", "_notes", "_param", "_spline", "_dspline", "_panel_s", "_panel_arc", "_knot_arc"
+    )
 
     def __init__(self, points_mm):
         points = _as_points(points_mm, "points_mm")
@@ -232,10 +235,17 @@ class Centerline:
         self._param = param
         self._spline = CubicSpline(param, points, axis=0)
         self._dspline = self._spline.derivative()
-        h = np.diff(param) / 2.0
-        nodes = (param[:-1] + h)[:, None] + h[:, None] * _GAUSS_X
+        # Arc length on panels (each spline interval split in _PANELS) with Gauss-Legendre
+        # on each: accurate even where a sparse spline bends hard within one interval.
+        fractions = np.arange(_PANELS) / _PANELS
+        panel_s = np.append((param[:-1, None] + np.diff(param)[:, None] * fractions).ravel(),
+                            param[-1])
+        h = np.diff(panel_s) / 2.0
+        nodes = (panel_s[:-1] + h)[:, None] + h[:, None] * _GAUSS_X
         speed = np.linalg.norm(self._dspline(nodes), axis=-1)
-        knot_arc = np.concatenate([[0.0], np.cumsum(h * (speed @ _GAUSS_W))])
+        panel_arc = np.concatenate([[0.0], np.cumsum(h * (speed @ _GAUSS_W))])
+        self._panel_s, self._panel_arc = panel_s, panel_arc
+        knot_arc = panel_arc[::_PANELS].copy()
         knot_arc.setflags(write=False)
         self._knot_arc = knot_arc
 
@@ -268,22 +278,24 @@ class Centerline:
         )
 
     # -- arc length <-> spline parameter --------------------------------------------
-    def _arc_in_interval(self, s, k):
-        half = (s - self._param[k]) / 2.0
-        nodes = (self._param[k] + half)[:, None] + half[:, None] * _GAUSS_X
+    def _arc_in_panel(self, s, k):
+        start = self._panel_s[k]
+        half = (s - start) / 2.0
+        nodes = (start + half)[:, None] + half[:, None] * _GAUSS_X
         speed = np.linalg.norm(self._dspline(nodes), axis=-1)
-        return self._knot_arc[k] + half * (speed @ _GAUSS_W)
+        return self._panel_arc[k] + half * (speed @ _GAUSS_W)
 
     def _param_of_arc(self, arc):
+        """Spline parameter at the given arc lengths (safeguarded Newton, per panel)."""
         arc = np.asarray(arc, dtype=np.float64).reshape(-1)
-        last = len(self._param) - 2
-        k = np.clip(np.searchsorted(self._knot_arc, arc, side="right") - 1, 0, last)
-        lo, hi = self._param[k], self._param[k + 1]
-        a0, a1 = self._knot_arc[k], self._knot_arc[k + 1]
+        last = len(self._panel_s) - 2
+        k = np.clip(np.searchsorted(self._panel_arc, arc, side="right") - 1, 0, last)
+        lo, hi = self._panel_s[k], self._panel_s[k + 1]
+        a0, a1 = self._panel_arc[k], self._panel_arc[k + 1]
         s = lo + (arc - a0) / (a1 - a0) * (hi - lo)
-        tol = 1e-13 * max(self.length_mm, 1.0)
-        for _ in range(20):
-            residual = self._arc_in_interval(s, k) - arc
+        tol = 1e-11 * max(self.length_mm, 1.0)  # mm; far below any image resolution
+        for _ in range(30):
+            residual = self._arc_in_panel(s, k) - arc
             if np.abs(residual).max(initial=0.0) <= tol:
                 break
             speed = np.linalg.norm(self._dspline(s), axis=-1)
@@ -351,14 +363,40 @@ class Centerline:
         Centerline
             With the same notes as this one.
         """
-        if isinstance(n, bool) or not isinstance(n, numbers.Integral) or n < 2:
-            raise InputError(f"n: expected an integer number of points >= 2, got {n!r}")
-        arc = np.linspace(0.0, self.length_mm, int(n))
-        points = self._spline(self._param_of_arc(arc))
-        points[0], points[-1] = self._points[0], self._points[-1]
+        points, _, _ = self.even_samples(n)
         out = Centerline(points)
         out._notes = self._notes + out._notes
         return out
+
+    def even_samples(self, n):
+        """Points, arc lengths and unit tangents at ``n`` evenly spaced arc lengths.
+
+        Everything is taken from this centerline's smooth interpolant (no second spline is
+        fitted), which is what cross-section sampling uses.
+
+        Parameters
+        ----------
+        n : int
+            Number of samples, at least 2.
+
+        Returns
+        -------
+        points : (n, 3) float64, mm
+            First and last exactly this centerline's end points.
+        arc_mm : (n,) float64, mm
+            ``linspace(0, length_mm, n)``.
+        tangents : (n, 3) float64
+            Unit tangents of the interpolant there.
+        """
+        if isinstance(n, bool) or not isinstance(n, numbers.Integral) or n < 2:
+            raise InputError(f"n: expected an integer number of points >= 2, got {n!r}")
+        arc = np.linspace(0.0, self.length_mm, int(n))
+        s = self._param_of_arc(arc)
+        points = self._spline(s)
+        points[0], points[-1] = self._points[0], self._points[-1]
+        tangents = self._dspline(s)
+        tangents /= np.linalg.norm(tangents, axis=1, keepdims=True)
+        return points, arc, tangents
 
     def frames(self, *, initial_normal=None):
         """Rotation-minimizing frames at this centerline's points.

@@ -17,7 +17,7 @@ import numpy as np
 
 from ..errors import InputError
 from ._grid import Grid, trilinear
-from .centerline import Centerline
+from .centerline import Centerline, rotation_minimizing_frames
 
 __all__ = ["CrossSections", "sample_cross_sections"]
 
@@ -123,41 +123,33 @@ def sample_on_grid(grid, centerline, *, points, size, pixel_mm, rotation_deg, fi
         raise InputError(
             f"centerline: expected an explain.geometry.Centerline, got {type(centerline).__name__}"
         )
-    line = centerline.resample(points)
-    frames = line.frames()
+    centres, arc, tangents = centerline.even_samples(points)
+    frames = rotation_minimizing_frames(centres, tangents)
     r = math.radians(rotation_deg)
     normal, binormal = frames[:, 1], frames[:, 2]
     u = math.cos(r) * normal + math.sin(r) * binormal
     v = -math.sin(r) * normal + math.cos(r) * binormal
+    # Pixel (row, col) of every section is centre + a_col u + b_row v: one small matrix
+    # product per section (BLAS) gives all positions, and, mapped through the affine index
+    # map, all continuous indices.
     offset = (np.arange(size, dtype=np.float64) - (size - 1) / 2.0) * pixel_mm
-    centres = line.points_mm
-    points_mm = (
-        centres[:, None, None, :]
-        + offset[None, None, :, None] * u[:, None, None, :]
-        + offset[None, :, None, None] * v[:, None, None, :]
+    basis = np.empty((3, size * size))
+    basis[0] = 1.0
+    basis[1] = np.tile(offset, size)  # col, fastest
+    basis[2] = np.repeat(offset, size)  # row
+    points_mm = np.matmul(basis.T, np.stack([centres, u, v], axis=1)).reshape(
+        points, size, size, 3
     )
-    # The index map is affine: map centres and axes once, then combine (cheaper than mapping
-    # every pixel's position).
     m = grid.index_matrix
-    ic = (centres - grid.origin) @ m.T
-    iu = u @ m.T
-    iv = v @ m.T
-    coords = []
-    for axis in range(3):
-        coords.append(
-            (
-                ic[:, None, None, axis]
-                + offset[None, None, :] * iu[:, None, None, axis]
-                + offset[None, :, None] * iv[:, None, None, axis]
-            ).reshape(-1)
-        )
-    base, offsets, wi, wj, wk, inside = grid.corners(*coords)
+    per_section = np.stack([(centres - grid.origin) @ m.T, u @ m.T, v @ m.T], axis=2)
+    index = np.matmul(per_section, basis)  # (N, 3 axes i j k, H*W)
+    base, offsets, wi, wj, wk, inside = grid.corners(index[:, 0], index[:, 1], index[:, 2])
     values = trilinear(grid.flat, base, offsets, wi, wj, wk)
-    n_outside = int(inside.size - np.count_nonzero(inside))
-    if n_outside:
+    n_outside = 0
+    if inside is not None:
+        n_outside = int(inside.size - np.count_nonzero(inside))
         values[~inside] = fill_value
     values = values.reshape(points, size, size)
-    arc = line.arc_mm.copy()
     for array in (values, points_mm, arc, frames):
         array.setflags(write=False)
     return CrossSections(

@@ -99,34 +99,49 @@ def splat(maps, cross_sections, *, like, return_weight=False):
     """
     grid = Grid(like, name="like", with_values=False)
     pairs = _pair_up(maps, cross_sections)
-    n_voxels = int(np.prod(grid.size))
-    total = np.zeros(n_voxels, dtype=np.float64)
-    weight = np.zeros(n_voxels, dtype=np.float64)
-    for values, cs in pairs:
+    total_pixels = sum(values.size for values, _ in pairs)
+    # Eight corner entries per pixel, written straight into preallocated arrays.
+    flat = np.empty(8 * total_pixels, dtype=np.intp)
+    weight_of = np.empty(8 * total_pixels, dtype=np.float64)
+    value_of = np.empty(8 * total_pixels, dtype=np.float64)
+    used = 0
+    for vals, cs in pairs:
         index = grid.index_of(cs.points_mm.reshape(-1, 3))
-        base, (di, dj, dk), wi, wj, wk, inside = grid.corners(index[:, 0], index[:, 1], index[:, 2])
-        if not inside.any():
+        base, (di, dj, dk), wi, wj, wk, inside = grid.corners(
+            index[:, 0], index[:, 1], index[:, 2], dtype=np.float64
+        )
+        vals = vals.reshape(-1)
+        if inside is not None:
+            base, vals, wi, wj, wk = (a[inside] for a in (base, vals, wi, wj, wk))
+        n = base.size
+        if n == 0:
             continue
-        base = base[inside]
-        vals = values.reshape(-1)[inside]
-        wi, wj, wk = (w[inside].astype(np.float64) for w in (wi, wj, wk))
-        flats, weights = [], []
-        for oi, fi in ((0, 1.0 - wi), (di, wi)):
-            for oj, fj in ((0, 1.0 - wj), (dj, wj)):
-                fij = fi * fj
-                for ok, fk in ((0, 1.0 - wk), (dk, wk)):
-                    flats.append(base + (oi + oj + ok))
-                    weights.append(fij * fk)
-        flat = np.concatenate(flats)
-        w = np.concatenate(weights)
-        # Bin only over the touched span so bincount's output stays small.
-        lo, hi = int(flat.min()), int(flat.max()) + 1
-        local = flat - lo
-        weight[lo:hi] += np.bincount(local, weights=w, minlength=hi - lo)
-        total[lo:hi] += np.bincount(local, weights=w * np.tile(vals, 8), minlength=hi - lo)
-    covered = weight > 0
+        # (2, 2, 2, n): lower and upper corner along i, j, k.
+        fi, fj, fk = (np.stack([1.0 - w, w]) for w in (wi, wj, wk))
+        chunk = slice(used, used + 8 * n)
+        w = weight_of[chunk].reshape(2, 2, 2, n)
+        np.multiply((fi[:, None] * fj[None, :])[:, :, None], fk[None, None, :], out=w)
+        np.multiply(w, vals, out=value_of[chunk].reshape(2, 2, 2, n))
+        step = (
+            np.array([0, di])[:, None, None]
+            + np.array([0, dj])[None, :, None]
+            + np.array([0, dk])[None, None, :]
+        )
+        np.add(base, step[..., None], out=flat[chunk].reshape(2, 2, 2, n))
+        used += 8 * n
+    n_voxels = int(np.prod(grid.size))
+    weight = np.zeros(n_voxels, dtype=np.float64)
     mean = np.zeros(n_voxels, dtype=np.float32)
-    mean[covered] = total[covered] / weight[covered]
+    if used:
+        flat, weight_of, value_of = flat[:used], weight_of[:used], value_of[:used]
+        # One bincount over the touched span only, so its output stays small.
+        lo, hi = int(flat.min()), int(flat.max()) + 1
+        flat -= lo
+        span_weight = np.bincount(flat, weights=weight_of, minlength=hi - lo)
+        span_total = np.bincount(flat, weights=value_of, minlength=hi - lo)
+        np.divide(span_total, span_weight, out=span_total, where=span_weight > 0)
+        mean[lo:hi] = span_total  # 0 / never-hit stays 0 (bincount gives 0 there)
+        weight[lo:hi] = span_weight
     out = _to_image(mean, grid, like)
     if return_weight:
         return out, _to_image(weight.astype(np.float32), grid, like)

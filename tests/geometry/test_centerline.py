@@ -255,3 +255,23 @@ def test_rotation_minimizing_frames_rejects_bad_tangents():
         rotation_minimizing_frames(pts, np.zeros((2, 3)))
     with pytest.raises(InputError, match="tangents"):
         rotation_minimizing_frames(pts, np.ones((3, 3)))
+
+
+def test_arc_length_of_a_sparse_sharply_bent_spline_agrees_with_scipy_quad():
+    # scipy.integrate.quad of |C'(s)| on the same not-a-knot CubicSpline (chord-length
+    # parameter): checks the Gauss-Legendre panels where one interval bends hard.
+    from scipy.integrate import quad
+    from scipy.interpolate import CubicSpline
+
+    pts = np.array([[0.0, 0, 0], [16.0, 2, 1], [20.0, 12, -3], [30.0, 9, 8], [31.0, 9.5, 8.2],
+                    [34.0, 12, 10]])
+    param = np.concatenate([[0.0], np.cumsum(np.linalg.norm(np.diff(pts, axis=0), axis=1))])
+    derivative = CubicSpline(param, pts, axis=0).derivative()
+    pieces = [
+        quad(lambda s: np.linalg.norm(derivative(s)), a, b, epsabs=1e-13, epsrel=1e-13)[0]
+        for a, b in zip(param[:-1], param[1:])
+    ]
+    line = Centerline(pts)
+    assert np.allclose(line.arc_mm, np.concatenate([[0.0], np.cumsum(pieces)]), rtol=1e-9)
+    # Inverse map: position_at(arc_mm) returns the points themselves.
+    assert np.allclose(line.position_at(line.arc_mm), pts, atol=1e-8)

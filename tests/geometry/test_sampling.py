@@ -16,7 +16,12 @@ import SimpleITK as sitk
 from scipy import ndimage
 
 from explain.errors import InputError
-from explain.geometry import Centerline, CrossSections, sample_cross_sections
+from explain.geometry import (
+    Centerline,
+    CrossSections,
+    rotation_minimizing_frames,
+    sample_cross_sections,
+)
 
 sys.path.insert(0, str(Path(__file__).parent))
 from oblique import (  # noqa: E402
@@ -100,10 +105,17 @@ def test_pixels_follow_the_architecture_convention():
     image = oblique_image(np.zeros(SIZE[::-1]))
     line = oblique_line(image)
     cs = sample_cross_sections(image, line, points=7, size=5, pixel_mm=0.5, rotation_deg=30.0)
-    resampled = line.resample(7)
-    assert np.allclose(cs.points_mm[:, 2, 2], resampled.points_mm, atol=1e-12)
-    assert np.allclose(cs.arc_mm, resampled.arc_mm)
-    assert np.allclose(cs.frames, resampled.frames())
+    # Centres evenly spaced along the given centerline's smooth curve, frames rotation-
+    # minimizing on its tangents there.
+    assert np.allclose(cs.arc_mm, np.linspace(0.0, line.length_mm, 7), rtol=0, atol=1e-12)
+    assert np.allclose(cs.points_mm[:, 2, 2], line.position_at(cs.arc_mm), atol=1e-9)
+    assert np.allclose(cs.points_mm[:, 2, 2], line.resample(7).points_mm, atol=1e-12)
+    assert np.allclose(cs.frames[:, 0], line.tangent_at(cs.arc_mm), atol=1e-9)
+    assert np.allclose(
+        cs.frames,
+        rotation_minimizing_frames(cs.points_mm[:, 2, 2], line.tangent_at(cs.arc_mm)),
+        atol=1e-9,
+    )
     r = np.radians(30.0)
     u = np.cos(r) * cs.frames[:, 1] + np.sin(r) * cs.frames[:, 2]
     v = -np.sin(r) * cs.frames[:, 1] + np.cos(r) * cs.frames[:, 2]
