@@ -73,6 +73,8 @@ class Peak:
         Profile value at the peak (aggregate of the map over the cross-section).
     pixel_value : float
         Map value at the peak pixel.
+    inside_image : bool
+        Whether ``voxel`` lies inside the CT (a pixel near the stack's rim may not).
     """
 
     index: int
@@ -83,6 +85,7 @@ class Peak:
     voxel: tuple
     value: float
     pixel_value: float
+    inside_image: bool = True
 
     def __repr__(self):
         x, y, z = self.xyz_mm
@@ -239,9 +242,10 @@ def find_peak(map_, points_mm, arc_mm, *, image, aggregate="positive"):
     row, col = _central_argmax(section)
     xyz = tuple(float(c) for c in np.asarray(points_mm)[index, row, col])
     voxel = tuple(int(c) for c in image.TransformPhysicalPointToIndex(xyz))
+    inside = all(0 <= v < n for v, n in zip(voxel, image.GetSize()))
     return Peak(index=index, row=int(row), col=int(col), arc_mm=float(np.asarray(arc_mm)[index]),
                 xyz_mm=xyz, voxel=voxel, value=float(p[index]),
-                pixel_value=float(values[index, row, col]))
+                pixel_value=float(values[index, row, col]), inside_image=inside)
 
 
 def locate(map_, points_mm, arc_mm, *, image, aggregate="positive"):

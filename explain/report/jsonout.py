@@ -38,13 +38,13 @@ def _plain(value):
 
 
 def peak_dict(location):
-    """``{"arc_mm", "xyz_mm", "voxel", "value", "cross_section", "pixel", "pixel_value"}`` or None."""
+    """The peak of one map as a dict (see docs/report-format.md), or None."""
     peak = location.peak
     if peak is None:
         return None
     return {"arc_mm": peak.arc_mm, "xyz_mm": list(peak.xyz_mm), "voxel": list(peak.voxel),
             "value": peak.value, "cross_section": peak.index, "pixel": [peak.row, peak.col],
-            "pixel_value": peak.pixel_value}
+            "pixel_value": peak.pixel_value, "voxel_inside_image": peak.inside_image}
 
 
 def _image_dict(image):

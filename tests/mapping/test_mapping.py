@@ -194,3 +194,16 @@ def test_tied_peak_pixels_resolve_toward_the_centerline():
     m[2, :, 4:] = 0.0
     peak = find_peak(m, pts, arc, image=image)
     assert (peak.row, peak.col) == (3, 3)
+
+
+def test_peak_outside_the_image_is_flagged():
+    image = make_image(size=(10, 10, 10), rotation_deg=0.0, origin=(0, 0, 0),
+                       spacing=(1.0, 1.0, 1.0))
+    pts, arc, _ = straight_stack([5, 0.2, 2], [0, 0, 1], points=4, size=5, pixel_mm=1.0,
+                                 step_mm=1.0)
+    m = np.zeros((4, 5, 5))
+    m[1, 2, 0] = 1.0          # column 0 lies at y = 0.2 - 2 mm: outside the image
+    peak = find_peak(m, pts, arc, image=image)
+    assert peak.voxel[1] < 0 and not peak.inside_image
+    m[1, 2, 0], m[1, 2, 4] = 0.0, 1.0
+    assert find_peak(m, pts, arc, image=image).inside_image
