@@ -125,7 +125,12 @@ def rotation_minimizing_frames(points, tangents, *, initial_normal=None):
         )
     norms = np.linalg.norm(t, axis=1)
     if not (np.isfinite(norms).all() and (norms > 0).all()):
-        raise InputError("tangents: every tangent must be finite and non-zero")
+        rows = np.flatnonzero(~(np.isfinite(norms) & (norms > 0)))
+        raise InputError(
+            f"tangents: every tangent must be finite and non-zero, rows {rows[:5].tolist()} "
+            "are not (a centerline that stops and turns back has no direction there; smooth "
+            "or split it)"
+        )
     t = t / norms[:, None]
     if initial_normal is None:
         r = default_initial_normal(t[0])
