@@ -227,7 +227,7 @@ def make_layout(rng, *, variation=1.0, include=()):
     >>> tree = make_layout(np.random.default_rng(0), variation=0.0)
     >>> sorted(tree.segments)
     [1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 16]
-    >>> round(2 * tree.segments[5].radius_mm[0], 2)  # Dodge 1992: left main 4.5 mm
+    >>> round(float(2 * tree.segments[5].radius_mm[0]), 2)  # Dodge 1992: left main 4.5 mm
     4.5
     """
     b = _Builder(rng, variation)
