@@ -328,7 +328,7 @@ def lumen_label(like, centerline_mm, radius_mm=None, *, label=1):
     centerline_mm : (n, 3) array_like
         Centerline points x, y, z, mm, proximal to distal.
     radius_mm : float or (n,) array_like, optional
-        Lumen radius per point, mm; default :data:`DEFAULT_RADIUS_MM`.
+        Lumen radius per point, mm (0 where occluded); default :data:`DEFAULT_RADIUS_MM`.
     label : int
         Value of the lumen voxels (1-255); the rest are 0.
 
@@ -344,8 +344,9 @@ def lumen_label(like, centerline_mm, radius_mm=None, *, label=1):
         raise InputError(f"centerline_mm: expected (n >= 2, 3) points, got shape {points.shape}")
     radius = np.broadcast_to(np.asarray(DEFAULT_RADIUS_MM if radius_mm is None else radius_mm,
                                         dtype=np.float64), points.shape[:1])
-    if not (np.isfinite(radius).all() and (radius > 0).all()):
-        raise InputError("radius_mm: expected positive finite radii in mm")
+    if not (np.isfinite(radius).all() and (radius >= 0).all()):
+        raise InputError("radius_mm: expected finite radii >= 0 in mm (0 where the lumen is "
+                         "occluded)")
     if not 1 <= int(label) <= 255:
         raise InputError(f"label: expected 1-255, got {label}")
     size = np.asarray(like.GetSize())
@@ -355,7 +356,7 @@ def lumen_label(like, centerline_mm, radius_mm=None, *, label=1):
 
     # Only the box around the tube is examined (index space, padded by the largest radius).
     index = np.linalg.solve(matrix, (dense - origin).T).T
-    pad = radius.max() / min(like.GetSpacing()) + 1.0
+    pad = max(radius.max(), 0.0) / min(like.GetSpacing()) + 1.0
     lo = np.clip(np.floor(index.min(axis=0) - pad), 0, size - 1).astype(int)
     hi = np.clip(np.ceil(index.max(axis=0) + pad), 0, size - 1).astype(int)
     out = np.zeros(tuple(size[::-1]), dtype=np.uint8)
@@ -367,7 +368,7 @@ def lumen_label(like, centerline_mm, radius_mm=None, *, label=1):
     grid = np.stack([ii.ravel(), jj.ravel(), kk.ravel()], axis=1)
     xyz = grid @ matrix.T + origin
     dist, nearest = cKDTree(dense).query(xyz)
-    inside = dist <= dense_r[nearest]
+    inside = (dist <= dense_r[nearest]) & (dense_r[nearest] > 0)
     # Flat ends: beyond the first or last point along the end tangent is outside.
     for end, neighbour in ((0, 1), (-1, -2)):
         tangent = dense[end] - dense[neighbour]

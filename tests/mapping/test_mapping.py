@@ -175,6 +175,11 @@ def test_lumen_label_radius_per_point_and_outside():
     assert sitk.GetArrayFromImage(lumen_label(image, far)).sum() == 0
     with pytest.raises(InputError, match="radius_mm"):
         lumen_label(image, line, -1.0)
+    # An occluded stretch (radius 0) holds no lumen voxels; the open part still does.
+    occluded = sitk.GetArrayFromImage(lumen_label(image, line, [0.0, 0.0]))
+    assert occluded.sum() == 0
+    half = sitk.GetArrayFromImage(lumen_label(image, line, [1.5, 0.0]))
+    assert half[3].sum() > half[15].sum() > 0 and half[18].sum() == 0
     with pytest.raises(InputError, match="centerline_mm"):
         lumen_label(image, line[:1])
 
