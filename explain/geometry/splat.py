@@ -14,11 +14,14 @@ import SimpleITK as sitk
 from ..errors import InputError
 from ._grid import Grid
 from .sampling import CrossSections
+from .stack import CaseSections
 
 __all__ = ["splat"]
 
 
 def _pair_up(maps, cross_sections):
+    if isinstance(cross_sections, CaseSections):
+        cross_sections = cross_sections.sections
     if isinstance(cross_sections, CrossSections):
         cross_sections = [cross_sections]
         if isinstance(maps, np.ndarray) or not isinstance(maps, (list, tuple)):
@@ -44,8 +47,11 @@ def _pair_up(maps, cross_sections):
             )
         try:
             array = np.asarray(m, dtype=np.float64)
-        except (TypeError, ValueError):
-            raise InputError(f"maps[{index}]: expected a numeric array, got {type(m).__name__}") from None
+        except (TypeError, ValueError, RuntimeError):
+            raise InputError(
+                f"maps[{index}]: expected a numeric array (detach torch tensors first), got "
+                f"{type(m).__name__}"
+            ) from None
         if array.shape != cs.shape:
             raise InputError(
                 f"maps[{index}]: expected shape {cs.shape} like its cross-sections, got "
@@ -64,9 +70,9 @@ def splat(maps, cross_sections, *, like, return_weight=False):
 
     Parameters
     ----------
-    maps : (N, H, W) array or list of them
+    maps : (N, H, W) array, or a list of them, or an (S, N, H, W) array
         One map per cross-section stack (any units; kept).
-    cross_sections : CrossSections or list of CrossSections
+    cross_sections : CrossSections, list of CrossSections, or CaseSections
         Where each map's pixels lie (``points_mm``), same order as ``maps``.
     like : SimpleITK.Image
         3D image whose size, origin, spacing and direction the result takes.

@@ -63,6 +63,11 @@ def test_index_map_agrees_with_simpleitk_continuous_index():
     expected = sitk_index(image, got[0].points_mm).reshape(6, 7, 7, 3)
     for axis in range(3):
         assert np.abs(got[axis].values - expected[..., axis]).max() < 2e-5
+    # And back: SimpleITK's TransformContinuousIndexToPhysicalPoint of the sampled indices
+    # gives each pixel's points_mm (p = origin + D diag(spacing) idx).
+    ours = np.stack([g.values for g in got], axis=-1).reshape(-1, 3).astype(np.float64)
+    back = np.array([image.TransformContinuousIndexToPhysicalPoint(c.tolist()) for c in ours])
+    assert np.abs(back - got[0].points_mm.reshape(-1, 3)).max() < 1e-4  # float32 indices
 
 
 def test_random_field_agrees_with_scipy_map_coordinates_order_1():

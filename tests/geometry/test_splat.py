@@ -139,3 +139,20 @@ def test_bad_inputs_raise_input_error(maps, stacks, like, words):
     with pytest.raises(InputError, match=words.replace("(", r"\(").replace(")", r"\)")
                        .replace("[", r"\[").replace("]", r"\]")):
         splat(chosen_maps, chosen_stacks, like=chosen_like)
+
+
+def test_case_sections_and_a_stacked_map_are_accepted():
+    from types import SimpleNamespace
+
+    from explain.geometry import sample_case
+
+    image = sitk.Image([16, 16, 16], sitk.sitkFloat32)
+    segments = (SimpleNamespace(id=2, centerline=Centerline([[4.0, 8, 2], [4, 8, 12]])),
+                SimpleNamespace(id=1, centerline=Centerline([[11.0, 8, 2], [11, 8, 12]])))
+    # 11 sections 1 mm apart on voxel centres: every voxel of each 3 x 3 x 11 block is hit.
+    sections = sample_case(SimpleNamespace(image=image, segments=segments), points=11, size=3,
+                           pixel_mm=1.0)
+    maps = np.stack([np.full((11, 3, 3), 1.0), np.full((11, 3, 3), 5.0)])  # segments 1, 2
+    values = sitk.GetArrayFromImage(splat(maps, sections, like=image))
+    assert np.allclose(values[2:13, 7:10, 3:6], 5.0)  # segment 2 at x = 4 (array [k, j, i])
+    assert np.allclose(values[2:13, 7:10, 10:13], 1.0)  # segment 1 at x = 11
