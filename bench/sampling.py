@@ -17,13 +17,17 @@ Run: ``.venv/bin/python bench/sampling.py``
 
 from __future__ import annotations
 
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import SimpleITK as sitk
 from scipy import ndimage
 
-from explain.geometry import Centerline, sample_cross_sections, splat
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout
+
+from explain.geometry import Centerline, sample_cross_sections, splat  # noqa: E402
 
 SEED = 20261201
 SEGMENTS, POINTS, SIZE, PIXEL_MM = 16, 64, 32, 0.4
