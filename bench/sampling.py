@@ -9,8 +9,8 @@
 * splatting: ``explain.geometry.splat`` against the same trilinear scatter written with
   ``np.add.at``.
 
-Each is the best of several repeats, ours and the reference interleaved in this process. The last line is
-``ratio=<scipy time / our sampling time>``.
+Each is the best of several repeats, ours and the reference interleaved in this process.
+The last line is ``ratio=<scipy time / our sampling time>``.
 
 Run: ``.venv/bin/python bench/sampling.py``
 """

@@ -4,8 +4,9 @@ A :class:`Centerline` holds the points of one segment, proximal to distal, in mm
 image's physical space. Everything measured along it (arc length, resampling, positions)
 uses one smooth interpolant: a cubic spline (scipy ``CubicSpline``, not-a-knot ends)
 parametrised by cumulative chord length. Arc length along that spline is integrated with
-8-point Gauss-Legendre quadrature on four panels per interval and inverted with a safeguarded Newton
-iteration, so resampled points are evenly spaced on the smooth curve, not on the polyline.
+8-point Gauss-Legendre quadrature on four panels per interval and inverted with a safeguarded
+Newton iteration, so resampled points are evenly spaced on the smooth curve, not on the
+polyline.
 
 Frames are rotation-minimizing (no twist about the tangent), built with the double-reflection
 method of Wang, Juttler, Zheng and Liu (ACM Trans Graph 2008;27(1):2), which has
