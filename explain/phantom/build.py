@@ -120,12 +120,15 @@ def _tube(path, placed, labels):
     side = np.cos(angle)[:, None] * frames[:, 1] + np.sin(angle)[:, None] * frames[:, 2]
     eccentric = np.array([p.eccentric for p in placed], dtype=float)[lead]
     lumen_points = path.points_mm + ((r0 - lumen) * eccentric)[:, None] * side
+    # an eccentric lesion bulges outwards on its plaque side only: the outer wall stays on the
+    # original wall where the lumen touches it, so the plaque is a crescent, not a ring
+    wall_points = path.points_mm - ((wall - r0) * eccentric)[:, None] * side
     # plaque HU: the lesion that dominates each point; outside all lesions, the nearest one's
     nearest = np.argmin(np.stack([np.abs(arc - p.centre_mm) for p in placed]), axis=0)
     owner = np.where(profiles.max(axis=0) > 0, np.argmax(profiles, axis=0), nearest)
     plaque_hu = np.array([p.plaque_hu for p in placed])[owner]
     extents = tuple((p.start_mm, p.end_mm, label) for p, label in zip(placed, labels))
-    return Tube(path.points_mm, wall, lumen_points, lumen, arc, plaque_hu, extents), lumen
+    return Tube(wall_points, wall, lumen_points, lumen, arc, plaque_hu, extents), lumen
 
 
 def make_phantom(*, seed=0, lesions=None, case_id=None, spacing_mm=DEFAULT_SPACING_MM,

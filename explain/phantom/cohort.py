@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..anatomy import segment_info
 from ..errors import InputError
 from ..grading import cadrads_category
 from ..io import atomic_output_dir, write_text
@@ -27,7 +28,7 @@ from .lesions import KINDS, LesionSpec
 from .writer import write_case_files
 
 __all__ = ["PATTERNS", "CohortEntry", "plan_cohort", "iter_cohort", "write_cohort",
-           "COHORT_COLUMNS"]
+           "COHORT_COLUMNS", "grade_segments"]
 
 #: Pattern names in cycle order; the 4B patterns are 4B-LM (left main) and 4B-3V (three vessels).
 PATTERNS = ("0", "1", "2", "3", "4A", "4B-LM", "5", "4B-3V")
@@ -41,7 +42,7 @@ _TERRITORY_SEGMENTS = {
 _ALL = (5,) + tuple(s for group in _TERRITORY_SEGMENTS.values() for s in group)
 
 COHORT_COLUMNS = ("case", "case_id", "grade", "seed", "pattern", "lesions", "n_lesions",
-                  "max_stenosis_percent", "culprit_segments", "lesion_extents_mm")
+                  "max_stenosis_percent", "grade_segments", "lesion_extents_mm")
 
 
 @dataclass(frozen=True)
@@ -160,10 +161,38 @@ def iter_cohort(*, count, seed=0, **options):
         yield make_phantom(seed=entry.seed, lesions=entry.lesions, case_id=entry.case_id, **options)
 
 
+def grade_segments(stenosis_percent, grade, lesion_segments=()):
+    """Segments that set a CAD-RADS 2.0 grade (Cury et al. 2022), ascending.
+
+    5: the occluded segments; 4B: the left main if >= 50 %, and every segment >= 70 % when all
+    three territories have one; 4A: segments >= 70 %; 3: 50-69 %; 2: 25-49 %; 1: segments with
+    a lesion (1-24 % or plaque without stenosis); 0: none.
+
+    Examples
+    --------
+    >>> grade_segments({5: 52.0, 7: 62.0, 11: 42.0}, "4B")
+    [5]
+    """
+    bands = {"5": (100, 101), "4A": (70, 100), "3": (50, 70), "2": (25, 50)}
+    if grade == "4B":
+        chosen = [s for s, v in stenosis_percent.items() if s == 5 and v >= 50]
+        territories = {segment_info(s).territory for s, v in stenosis_percent.items() if v >= 70}
+        if {"LAD", "LCx", "RCA"} <= territories:
+            chosen += [s for s, v in stenosis_percent.items() if v >= 70 and s != 5]
+        return sorted(set(chosen))
+    if grade in bands:
+        lo, hi = bands[grade]
+        return sorted(s for s, v in stenosis_percent.items() if lo <= v < hi)
+    if grade == "1":
+        return sorted(set(lesion_segments))
+    return []
+
+
 def _row(entry, case):
     ref = case.reference
     worst = max(ref["stenosis_percent"].values())
-    culprits = [s for s, v in sorted(ref["stenosis_percent"].items()) if v == worst and worst > 0]
+    culprits = grade_segments(ref["stenosis_percent"], ref["grade"],
+                              [p.segment for p in case.lesions])
     return {
         "case": f"{entry.case_id}/case.json",
         "case_id": entry.case_id,
@@ -173,7 +202,7 @@ def _row(entry, case):
         "lesions": ";".join(p.summary() for p in case.lesions),
         "n_lesions": len(case.lesions),
         "max_stenosis_percent": f"{worst:g}",
-        "culprit_segments": ";".join(str(s) for s in culprits),
+        "grade_segments": ";".join(str(s) for s in culprits),
         "lesion_extents_mm": ";".join(f"{p.segment}:{p.start_mm:.2f}-{p.end_mm:.2f}"
                                       for p in case.lesions),
     }
@@ -196,9 +225,12 @@ def write_cohort(out_dir, *, count, seed=0, force=False, **options):
     Returns
     -------
     Path
-        ``out_dir / "cohort.csv"``. Its column ``case`` is the path of each ``case.json``
-        relative to the CSV's folder (``case-0000/case.json``); the other columns are
-        :data:`COHORT_COLUMNS`.
+        ``out_dir / "cohort.csv"``, columns :data:`COHORT_COLUMNS`: ``case`` is the path of
+        each ``case.json`` relative to the CSV's folder (``case-0000/case.json``); ``grade``
+        the CAD-RADS 2.0 category; ``seed`` the case's own seed; ``pattern`` the planned
+        pattern; ``lesions`` ``ID:PERCENT:kind`` joined by ``;`` (what ``--lesion`` reads);
+        ``grade_segments`` the segments that set the grade (:func:`grade_segments`);
+        ``lesion_extents_mm`` ``ID:start-end`` in arc mm.
     """
     out_dir = Path(out_dir)
     entries = plan_cohort(count=count, seed=seed)

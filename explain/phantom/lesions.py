@@ -7,8 +7,9 @@ radius is ``r0 (1 - d p(s))`` with ``p`` rising from 0 to 1 and back. The flat m
 fills the space between the narrowed lumen and the original wall; an eccentric lesion pushes the
 narrowed lumen against one side of the wall (a crescent of plaque), a concentric one keeps it
 centred (a ring). The wall also bulges outwards by a quarter of its radius at the lesion's
-middle (positive remodelling; common practice, no source), so a 0 % lesion is plaque without
-stenosis (CAD-RADS 1).
+middle (positive remodelling; common practice, no source) -- all round for a concentric lesion,
+on the plaque side only for an eccentric one -- so a 0 % lesion is plaque without stenosis
+(CAD-RADS 1).
 """
 
 from __future__ import annotations

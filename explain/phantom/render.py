@@ -73,9 +73,9 @@ class Tube:
 
     Attributes
     ----------
-    points_mm : (n, 3) vessel axis; wall_mm : (n,) outer wall radius
+    points_mm : (n, 3) outer wall axis; wall_mm : (n,) outer wall radius
     lumen_points_mm : (n, 3) lumen axis; lumen_mm : (n,) lumen radius
-    arc_mm : (n,) arc length along the vessel axis
+    arc_mm : (n,) arc length along the vessel's centerline (for the mask's extents)
     plaque_hu : (n,) plaque attenuation to use near each point
     lesions : tuple of (start_mm, end_mm, label) for the lesion mask
     """

@@ -79,3 +79,18 @@ def test_iter_cohort_yields_the_planned_cases_in_memory():
     assert [c.case_id for c in cases] == [e.case_id for e in plan]
     assert [c.seed for c in cases] == [e.seed for e in plan]
     assert [c.reference["grade"] for c in cases] == [e.category for e in plan]
+
+
+@pytest.mark.parametrize("stenosis, grade, expected", [
+    ({5: 52.0, 7: 62.0, 11: 42.0}, "4B", [5]),  # left main >= 50 % (Cury 2022)
+    ({2: 81.0, 10: 76.0, 12: 93.0, 6: 8.0}, "4B", [2, 10, 12]),  # three vessels >= 70 %
+    ({16: 100.0, 13: 68.0}, "5", [16]),
+    ({12: 73.0, 1: 29.0}, "4A", [12]),
+    ({1: 56.0, 11: 17.0}, "3", [1]),
+    ({2: 47.0, 7: 14.0}, "2", [2]),
+])
+def test_grade_segments_name_what_sets_the_category(stenosis, grade, expected):
+    from explain.phantom.cohort import grade_segments
+
+    assert grade_segments(stenosis, grade) == expected
+    assert cadrads_category(stenosis) == grade  # the example is graded as stated (Cury 2022)
