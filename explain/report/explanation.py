@@ -289,6 +289,10 @@ def explain_case(model, case, *, methods=None, target="predicted", points=None, 
     from ..geometry import sample_case
     from ..model.targets import resolve_target
 
+    if not all(callable(getattr(model, name, None)) for name in ("encode", "head", "forward")):
+        raise InputError(
+            f"model: expected a wrapped model (explain.load_model or explain.wrap_model), got "
+            f"{type(model).__name__}; wrap a torch module with explain.wrap_model(module)")
     methods = _check_methods(methods)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
         raise InputError(f"seed: expected an integer, got {seed!r}")
@@ -343,7 +347,7 @@ def explain_case(model, case, *, methods=None, target="predicted", points=None, 
         "methods": list(methods), "target": target if isinstance(target, (int, str)) else label,
         **sampling, "rotation_deg": 0.0, "baseline_hu": baseline_hu, "seed": int(seed),
         "method_options": method_options, "profile_aggregate": {m: aggregate_of(m) for m in methods},
-        "peak_pixel": "largest value in the peak cross-section",
+        "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
         "extent_rule": "contiguous run at or above half the peak profile value",
         "culprit_rule": "largest Shapley value over segments",
         "library_version": __version__,

@@ -123,13 +123,17 @@ def profile_figure(explanation, method):
 
 
 def _overlay_rgba(values, vmax, signed):
-    """Map values to colours whose opacity grows with magnitude (weak values stay see-through)."""
+    """Map values to colours whose opacity grows with magnitude.
+
+    Values under 5 % of the scale are fully transparent, so that near-zero attribution (white
+    in the diverging scale) cannot be mistaken for bright CT."""
     if signed:
         cmap, norm = colormaps["RdBu_r"], Normalize(-vmax, vmax)
     else:
         cmap, norm = colormaps["plasma"], Normalize(0.0, vmax)
     rgba = cmap(norm(values))
-    rgba[..., 3] = 0.9 * np.clip(np.abs(values) / vmax, 0, 1) ** 0.6
+    strength = np.clip((np.abs(values) / vmax - 0.05) / 0.95, 0, 1)
+    rgba[..., 3] = 0.9 * strength ** 0.8
     return rgba, ScalarMappable(norm=norm, cmap=cmap)
 
 

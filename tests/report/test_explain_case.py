@@ -10,6 +10,7 @@ where a window covers it (Zeiler and Fergus 2014), so both must peak there.
 
 import numpy as np
 import pytest
+import torch
 
 from explain import CAUTION
 from explain.errors import InputError
@@ -89,6 +90,8 @@ def test_bad_options_are_input_errors(model, dark_case):
         explain_case(model, dark_case, methods=("gradient",), seed=1.5, **common)
     with pytest.raises(InputError, match="baseline_hu"):
         explain_case(model, dark_case, methods=("gradient",), baseline_hu="water", **common)
+    with pytest.raises(InputError, match="wrap_model"):
+        explain_case(torch.nn.Linear(2, 2), dark_case, **common)
     # The model states no sampling: points, size and pixel_mm must be given.
     with pytest.raises(InputError, match="--points"):
         explain_case(model, dark_case, methods=("gradient",))
