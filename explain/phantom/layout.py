@@ -155,13 +155,15 @@ class _Builder:
         point = Centerline(path[0]).position_at(fraction * path[1][-1])
         return _angles(self.to_local(point))
 
-    def vessel(self, controls, segment_ids, splits, system, *, parent=None, at=1.0, jitter=3.0):
+    def vessel(self, controls, segment_ids, splits, system, *, parent=None, at=1.0, jitter=None):
         """Draw one vessel through heart-angle ``controls`` and cut it into ``segment_ids``.
 
         ``controls[0]`` is the start; later points move by up to ``jitter`` degrees. ``splits``
         are arc fractions where one segment ends and the next begins (each moved by up to 0.04).
         """
         controls = np.array(controls, dtype=float)
+        if jitter is None:  # side branches shake less: they must not swing into their parent
+            jitter = 3.0 if parent is None or len(segment_ids) > 1 else 2.0
         shake = self.rng.uniform(-1, 1, controls.shape) * jitter * self.variation
         shake[0] = 0.0
         controls = controls + shake
@@ -241,7 +243,7 @@ def make_layout(rng, *, variation=1.0, include=()):
     lm = b.start_angles(5)
     b.vessel([lm, (43, 18), (56, 6), (80, 2), (110, 0), (140, -3), (160, -8)],
              [6, 7, 8], [0.27, 0.62], "LAD", parent=5)
-    b.vessel([lm, (42, 45), (g, 65), (g, 95), (g, 120), (g, 140)],
+    b.vessel([lm, (40, 48), (g, 67), (g, 95), (g, 120), (g, 140)],
              [11, 13], [0.42], "LCx", parent=5)
     b.vessel(_branch(b.start_angles(6), [(10, 15), (28, 33), (42, 42)]), [9], [], "LAD", parent=6)
     b.vessel(_branch(b.start_angles(7), [(8, 12), (20, 24), (30, 30)]), [10], [], "LAD", parent=7)
@@ -250,10 +252,11 @@ def make_layout(rng, *, variation=1.0, include=()):
              parent=13, at=0.5)
     crux = b.start_angles(3)
     b.vessel(_branch(crux, [(25, 0), (50, -1), (72, -3)]), [4], [], "RCA", parent=3)
-    b.vessel(_branch(crux, [(8, -10), (20, -18), (30, -15 if with_lplb else -25)]), [16], [],
+    b.vessel(_branch(crux, [(6, -14), (20, -20), (30, -15 if with_lplb else -25)]), [16], [],
              "RCA", parent=3)
     if with_ramus:
-        b.vessel(_branch(lm, [(11, 2), (30, 10), (55, 20)]), [17], [], "LCx", parent=5)
+        b.vessel(_branch(lm, [(11, 4), (30, 12), (55, 20)]), [17], [], "LCx", parent=5,
+                 jitter=1.5)
     if with_lplb:
         b.vessel(_branch(b.start_angles(13), [(12, 0), (25, -2), (35, -3)]), [18], [], "LCx",
                  parent=13)
