@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import base64
 import html
+import json
 import math
 
 __all__ = ["report_html"]
@@ -79,6 +80,8 @@ def _td(text, numeric=False):
 def _target_words(label):
     if isinstance(label, int):
         return f"output column {_e(label)}"
+    if label == "expected":
+        return "the expected CAD-RADS category"
     return f"output {_e(label)}"
 
 
@@ -132,7 +135,9 @@ def _figures(report, images):
 def _key_values(mapping):
     rows = []
     for key, value in mapping.items():
-        if isinstance(value, (list, tuple)):
+        if isinstance(value, dict):
+            value = json.dumps(value)
+        elif isinstance(value, (list, tuple)):
             value = ", ".join(str(v) for v in value)
         rows.append([_td(_e(key)), _td(_e("null" if value is None else value))])
     return _table(["setting", "value"], rows)
