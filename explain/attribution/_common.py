@@ -8,7 +8,7 @@ from ..errors import InputError
 from ..model.targets import resolve_target
 from ..model.wrap import WrappedModel
 
-DEFAULT_HEAD_BATCH = 4096
+DEFAULT_HEAD_BATCH = 16384
 
 
 def check_call(wrapped, x, *, one_patient=True):
@@ -30,10 +30,14 @@ def batch_size(value, *, default, name="internal_batch_size"):
     return value
 
 
-def fixed_target(wrapped, x, target):
-    """The target resolved at the whole model's output for ``x`` (so "predicted" stays fixed)."""
+def fixed_target(wrapped, x, target, *, feats=None):
+    """The target resolved at the whole model's output for ``x`` (so "predicted" stays fixed).
+
+    With the segment features ``feats (1, S, C)`` at hand, the output is ``head(max(feats))``,
+    which is the whole model's output without running the encoder again.
+    """
     with torch.no_grad():
-        out = wrapped.forward(x)
+        out = wrapped.forward(x) if feats is None else wrapped.head(feats.max(dim=1).values)
     return resolve_target(out, target, grade_labels=wrapped.grade_labels)
 
 

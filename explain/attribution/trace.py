@@ -185,7 +185,7 @@ def trace_segments(
     baseline_hu : float
         The "absent" value: a removed segment counts as cross-sections filled with it.
     internal_batch_size : int, optional
-        Rows per head call (default 4096); bounds memory.
+        Rows per head call (default 16384); bounds memory.
     max_exact : int
         Largest S for exact Shapley values (at most 20: 2^S head rows).
     n_permutations, seed : int
@@ -200,9 +200,10 @@ def trace_segments(
     if isinstance(max_exact, bool) or not isinstance(max_exact, int) or not 1 <= max_exact <= MAX_EXACT:
         raise InputError(f"max_exact: expected an integer 1..{MAX_EXACT}, got {max_exact!r}")
     n_permutations = batch_size(n_permutations, default=256, name="n_permutations")
-    tgt = fixed_target(wrapped, x, target)
     with torch.no_grad():
-        feats = wrapped.encode(x)[0].detach()
+        feats = wrapped.encode(x).detach()
+    tgt = fixed_target(wrapped, x, target, feats=feats)
+    feats = feats[0]
     base = baseline_features(wrapped, x, baseline_hu)
     s, c = feats.shape
 
