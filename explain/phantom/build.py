@@ -9,11 +9,13 @@ from __future__ import annotations
 
 import numbers
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 import SimpleITK as sitk
 
 from ..anatomy import segment_info
+from ..case import Case, Lesion, Reference, Segment
 from ..errors import InputError
 from ..geometry import Centerline
 from ..grading import cadrads_category
@@ -70,6 +72,31 @@ class PhantomCase:
     @property
     def segment_ids(self):
         return tuple(sorted(self.centerlines))
+
+    def to_case(self, *, ramus_territory="LCx"):
+        """The same case as :func:`explain.case.load_case` would give after writing it, without
+        the disk (centerlines not rounded to 0.1 micrometre as in the CSVs).
+
+        Returns
+        -------
+        explain.case.Case
+            ``path`` and each segment's ``source`` name where the files would be
+            (``<case_id>/case.json``, ``centerlines/seg<ID>.csv``), relative.
+        """
+        segments = []
+        for segment_id in self.segment_ids:
+            info = segment_info(segment_id, ramus_territory=ramus_territory)
+            segments.append(Segment(info.id, info.abbr, info.name, info.territory,
+                                    Centerline(self.centerlines[segment_id]),
+                                    np.array(self.radius_mm[segment_id]),
+                                    Path(f"centerlines/seg{segment_id}.csv")))
+        ref = self.reference
+        reference = Reference(ref["grade"], dict(ref["stenosis_percent"]),
+                              tuple(Lesion(l["segment"], l["start_mm"], l["end_mm"])
+                                    for l in ref["lesions"]),
+                              sitk.Cast(self.lesion_mask, sitk.sitkFloat32))
+        return Case(self.case_id, Path(self.case_id) / "case.json", self.image, tuple(segments),
+                    reference, ())
 
     def __repr__(self):
         size = "x".join(str(n) for n in self.image.GetSize())

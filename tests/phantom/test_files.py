@@ -142,3 +142,18 @@ def test_cohort_folder_and_csv(tmp_path):
                              lesions=row["lesions"].split(";") if row["lesions"] else None)
         assert np.array_equal(sitk.GetArrayFromImage(again.image),
                               sitk.GetArrayFromImage(case.image))
+
+
+def test_to_case_equals_the_loaded_case(tmp_path):
+    memory = make_phantom(seed=8, lesions=["11:45:soft"], **QUICK)
+    loaded = load_case(write_phantom_case(tmp_path / "c", seed=8, lesions=["11:45:soft"], **QUICK))
+    direct = memory.to_case()
+    assert direct.segment_ids == loaded.segment_ids
+    assert [(s.abbr, s.territory) for s in direct.segments] == [
+        (s.abbr, s.territory) for s in loaded.segments]
+    for a, b in zip(direct.segments, loaded.segments):
+        assert np.allclose(a.centerline.arc_mm, b.centerline.arc_mm, atol=1e-3)
+    assert direct.reference.grade == loaded.reference.grade == "2"
+    assert direct.reference.lesions == loaded.reference.lesions
+    assert np.array_equal(sitk.GetArrayFromImage(direct.reference.lesion_mask),
+                          sitk.GetArrayFromImage(loaded.reference.lesion_mask))
