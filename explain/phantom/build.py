@@ -194,6 +194,10 @@ def make_phantom(*, seed=0, lesions=None, case_id=None, spacing_mm=DEFAULT_SPACI
     specs = _as_specs(lesions)
     if not (isinstance(spacing_mm, numbers.Real) and 0.2 <= float(spacing_mm) <= 2.0):
         raise InputError(f"spacing_mm: expected a voxel size of 0.2-2.0 mm, got {spacing_mm!r}")
+    for name, value, top in (("variation", variation, 2.0), ("blur_sigma_mm", blur_sigma_mm, 2.0),
+                             ("noise_sd_hu", 0.0 if noise_sd_hu is None else noise_sd_hu, 500.0)):
+        if isinstance(value, bool) or not isinstance(value, numbers.Real) or not 0.0 <= value <= top:
+            raise InputError(f"{name}: expected a number from 0 to {top:g}, got {value!r}")
     if direction is not None:
         direction = np.asarray(direction, dtype=np.float64)
         if direction.shape != (3, 3) or not np.allclose(direction.T @ direction, np.eye(3), atol=1e-6):

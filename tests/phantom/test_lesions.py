@@ -71,6 +71,9 @@ def test_hand_placed_lesion_keeps_its_numbers():
     (dict(spacing_mm=0.01), "spacing_mm"),
     (dict(direction=np.ones((3, 3))), "direction"),
     (dict(lesions=[42]), "lesions"),
+    (dict(variation=-1.0), "variation"),
+    (dict(noise_sd_hu=-5.0), "noise_sd_hu"),
+    (dict(blur_sigma_mm=float("nan")), "blur_sigma_mm"),
 ])
 def test_make_phantom_refuses_bad_options(kwargs, field):
     with pytest.raises(InputError, match=field):
