@@ -123,10 +123,18 @@ def same_geometry(a, b, *, tolerance=1e-4):
     )
 
 
+def _umask():
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def _temp_beside(path):
     suffix = _suffix(path) or path.suffix
     fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=suffix, dir=path.parent)
     os.close(fd)
+    # mkstemp makes the file private (0600); an output file should have the usual permissions.
+    os.chmod(name, 0o666 & ~_umask())
     return Path(name)
 
 
@@ -187,6 +195,7 @@ def atomic_output_dir(out_dir, *, force=False, field="--out"):
         )
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     temp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+    os.chmod(temp, 0o777 & ~_umask())  # mkdtemp makes it private (0700)
     try:
         yield temp
     except BaseException:

@@ -161,3 +161,18 @@ def test_atomic_output_dir_refuses_and_cleans(tmp_path):
         (temp / "new.txt").write_text("new")
     assert sorted(p.name for p in out.iterdir()) == ["new.txt"]
     assert [p.name for p in tmp_path.iterdir()] == ["out"]
+
+
+def test_outputs_have_usual_permissions(tmp_path):
+    import os
+    import stat
+
+    mask = os.umask(0o022)
+    try:
+        path = write_image(_volume(), tmp_path / "ct.nii.gz")
+        with atomic_output_dir(tmp_path / "out") as temp:
+            (temp / "a.txt").write_text("a")
+    finally:
+        os.umask(mask)
+    assert stat.S_IMODE(path.stat().st_mode) == 0o644
+    assert stat.S_IMODE((tmp_path / "out").stat().st_mode) == 0o755
