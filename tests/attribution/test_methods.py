@@ -165,3 +165,14 @@ def test_unknown_method_and_option():
         "gradient", "gradient_x_input", "smoothgrad", "integrated_gradients", "gradcam", "occlusion"
     }
     assert np.isfinite(attribute(w, x, method="gradcam", target=0, layer="conv").numpy()).all()
+
+
+def test_gradcam_2d_layer_per_cross_section_equals_captum():
+    # captum LayerGradCam on the whole model, then LayerAttribution.interpolate (bilinear)
+    net = h.tm.PerSection2D()
+    w = wrap_model(net)
+    x = h.patient(s=3, n=4, h=6, w=6, seed=8)
+    ours = attribute(w, x, method="gradcam", target=1, layer="conv")
+    cam = LayerGradCam(net, net.conv).attribute(x.clone(), target=1, relu_attributions=True)
+    ref = LayerAttribution.interpolate(cam, (6, 6), interpolate_mode="bilinear")
+    torch.testing.assert_close(ours, ref.reshape(x.shape), **TOL)

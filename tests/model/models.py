@@ -107,3 +107,27 @@ class ChannelsEqualS(nn.Module):
         feats = x.mean(dim=(3, 4))[..., :3]  # (B, S, 3): first three cross-sections
         pooled = feats.amax(dim=1)  # the segment max, (B, 3)
         return pooled.amax(dim=1, keepdim=True)  # over 3 channels: equals S when S = 3
+
+
+class PerSection2D(nn.Module):
+    """Protocol model whose encoder is a 2D conv applied to every cross-section."""
+
+    def __init__(self, channels=3, seed=0):
+        super().__init__()
+        g = torch.Generator().manual_seed(seed)
+        self.conv = nn.Conv2d(1, channels, 3, stride=2, padding=1)
+        self.fc = nn.Linear(channels, 2)
+        with torch.no_grad():
+            for p in self.parameters():
+                p.copy_(torch.randn(p.shape, generator=g) * 0.5)
+
+    def encode_segments(self, x):
+        b, s, n = x.shape[:3]
+        z = torch.tanh(self.conv(x.reshape(b * s * n, 1, *x.shape[3:]) / 100.0))
+        return z.amax(dim=(2, 3)).reshape(b, s, n, -1).mean(dim=2)
+
+    def head(self, pooled):
+        return self.fc(pooled)
+
+    def forward(self, x):
+        return self.head(self.encode_segments(x).max(dim=1).values)
