@@ -1,8 +1,9 @@
 """The bundled reference network: a compact 3D CNN per segment, a max over segments, a small head.
 
 Our own small design for synthetic phantoms. Each segment's stack of cross-sections
-``(N, H, W)`` in HU is normalised inside the network, passed through four 3x3x3 convolutions
-(two of them with stride 2) and reduced to ``C`` features by a spatial maximum; the patient
+``(N, H, W)`` in HU is normalised inside the network, passed through two 3x3x3 convolutions,
+summarised per cross-section (centre-weighted mean and central maximum), filtered along the segment by
+two 1D convolutions and reduced to ``C`` features by a maximum along the segment; the patient
 vector is the maximum of those over segments; a two-layer head gives one logit per CAD-RADS 2.0
 category 0, 1, 2, 3, 4A, 4B, 5. See ``docs/reference-model.md`` for training and limits
 (synthetic data only; not for real scans).
@@ -30,48 +31,76 @@ _CENTRE_HU = 250.0
 _SCALE_HU = 350.0
 
 
+def _centre_weights(size, sigma):
+    """(size, size) Gaussian weights around the plane's centre, summing to 1."""
+    r = torch.arange(size, dtype=torch.float32) - (size - 1) / 2
+    w = torch.exp(-(r[:, None] ** 2 + r[None, :] ** 2) / (2 * sigma**2))
+    return w / w.sum()
+
+
 class ReferenceNet(nn.Module):
-    """Compact 3D CNN over each segment, max over segments, MLP head.
+    """Compact CNN per segment: 3D convolutions, lumen profiles along the segment, max, head.
 
     Parameters
     ----------
     channels : int
-        Width of the first convolution; later ones use 2x.
+        Width of the two 3D convolutions.
     features : int
         C, the per-segment feature vector length.
 
     Notes
     -----
-    Layer geometry (for Grad-CAM): ``features.4`` (third convolution, stride 1) follows a
-    stride-2 convolution with kernel 3 and padding 1, so its cell ``j`` is centred on input
-    pixel ``2 j`` along each axis (stride 2, offset 0), not on ``2 j + 0.5`` as a plain
-    resize would assume.
+    Per segment: two 3x3x3 convolutions over the stack (N, H, W), the second with stride 2 in
+    the plane; per cross-section, a centre-weighted mean (Gaussian, sd 2.5 px of the half-size
+    grid, about 2.5 mm) and the maximum over the central half of the plane of each channel, and
+    the centre-weighted mean of the normalised HU itself: lumen-, plaque- and calcium-like
+    profiles along the segment, blind to what lies far from the centerline; two 1D convolutions
+    along the segment (width 5, the second dilated by 2, no padding) that compare a
+    cross-section with its neighbours over about 13 sections; the maximum along the segment.
+    The patient vector is the maximum over segments.
+
+    Layer geometry (for Grad-CAM): ``features.2`` (second 3D convolution, kernel 3, padding 1,
+    stride 1 along the segment and 2 in the plane) has cell ``(n, j, k)`` centred on input pixel
+    ``(n, 2 j, 2 k)``: stride (1, 2, 2), offset 0 - not ``2 j + 0.5`` as a plain resize assumes.
     """
 
     cross_section_spec = REFERENCE_SPEC
     grade_labels = CATEGORIES
-    cam_layer = "features.4"
-    cam_stride = (2.0, 2.0, 2.0)
+    cam_layer = "features.2"
+    cam_stride = (1.0, 2.0, 2.0)
     cam_offset = (0.0, 0.0, 0.0)
 
     def __init__(self, *, channels=8, features=32):
         super().__init__()
         c = channels
+        size = REFERENCE_SPEC.size
         self.features = nn.Sequential(
             nn.Conv3d(1, c, 3, padding=1), nn.ReLU(),
-            nn.Conv3d(c, 2 * c, 3, stride=2, padding=1), nn.ReLU(),
-            nn.Conv3d(2 * c, 2 * c, 3, padding=1), nn.ReLU(),
-            nn.Conv3d(2 * c, features, 3, stride=2, padding=1), nn.ReLU(),
+            nn.Conv3d(c, c, 3, stride=(1, 2, 2), padding=1), nn.ReLU(),
+        )
+        self.along = nn.Sequential(
+            nn.Conv1d(2 * c + 1, 2 * c, 5), nn.ReLU(),
+            nn.Conv1d(2 * c, features, 5, dilation=2), nn.ReLU(),
         )
         self.classifier = nn.Sequential(
             nn.Linear(features, 32), nn.ReLU(), nn.Linear(32, len(CATEGORIES))
         )
+        self.register_buffer("centre_half", _centre_weights((size + 1) // 2, 2.5), persistent=False)
+        self.register_buffer("centre_full", _centre_weights(size, 5.0), persistent=False)
 
     def encode_segments(self, x):
         """Features ``(B, S, C)`` of ``x (B, S, N, H, W)`` in HU."""
         b, s = x.shape[:2]
         z = ((x - _CENTRE_HU) / _SCALE_HU).reshape(b * s, 1, *x.shape[2:])
-        f = self.features(z).amax(dim=(2, 3, 4))
+        a = self.features(z)  # (B*S, c, N, h, w), h = ceil(H / 2)
+        h = a.shape[-1]
+        lo, hi = h // 4, h - h // 4
+        profiles = torch.cat([
+            (a * self.centre_half).sum(dim=(3, 4)),
+            a[..., lo:hi, lo:hi].amax(dim=(3, 4)),
+            (z * self.centre_full).sum(dim=(3, 4)),
+        ], dim=1)  # (B*S, 2c + 1, N)
+        f = self.along(profiles).amax(dim=2)
         return f.reshape(b, s, -1)
 
     def head(self, pooled):

@@ -1,0 +1,58 @@
+"""The bundled reference network: shipped weights load, the spec and labels are declared."""
+
+from __future__ import annotations
+
+import json
+from importlib import resources
+
+import pytest
+import torch
+
+from explain.attribution import attribute, trace_segments
+from explain.grading import CATEGORIES
+from explain.model import REFERENCE_SPEC, load_model
+
+
+@pytest.fixture(scope="module")
+def reference():
+    return load_model("builtin:reference")
+
+
+def test_shipped_weights_load(reference):
+    assert reference.kind == "protocol" and reference.name == "reference"
+    assert reference.spec == REFERENCE_SPEC and reference.grade_labels == CATEGORIES
+    shipped = resources.files("explain.model").joinpath("reference.pt")
+    assert shipped.stat().st_size < 5_000_000  # "a few MB at most"
+    metrics = json.loads(resources.files("explain.model").joinpath("reference-metrics.json").read_text())
+    assert metrics["case_seed_overlap_train_heldout"] == 0
+    assert len(metrics["confusion_rows_true_cols_predicted"]) == len(CATEGORIES)
+
+
+def test_reference_runs_all_steps_on_a_small_patient(reference):
+    x = torch.full((1, 2) + REFERENCE_SPEC.shape, -80.0)
+    x[:, :, :, 8:16, 8:16] = 350.0  # a bright lumen in fat
+    x[0, 1, 10:14, 9:15, 9:15] = 60.0  # a soft plaque narrowing segment 1
+    out = reference(x)
+    assert out.shape == (1, len(CATEGORIES)) and torch.isfinite(out).all()
+    tr = trace_segments(reference, x, target="expected")
+    assert abs(tr.shapley.sum() - (tr.value_all - tr.value_empty)) < 1e-9  # Shapley 1953 efficiency
+    cam = attribute(reference, x, method="gradcam", target="expected")
+    assert cam.shape == x.shape and torch.isfinite(cam).all()
+
+
+def test_maps_fail_to_survive_weight_randomisation(reference):
+    # sanity check of Adebayo et al., NeurIPS 2018: re-initialise the weights and the gradient
+    # map must change (Spearman rank correlation with the trained map well below 1)
+    from scipy.stats import spearmanr
+
+    from explain.model import build_reference, wrap_model
+
+    x = torch.full((1, 2) + REFERENCE_SPEC.shape, -80.0)
+    x[:, :, :, 8:16, 8:16] = 350.0
+    x[0, 1, 10:14, 9:15, 9:15] = 60.0
+    g = torch.Generator().manual_seed(0)
+    x = x + 20.0 * torch.randn(x.shape, generator=g)
+    trained = attribute(reference, x, method="gradient", target="expected")
+    random = attribute(wrap_model(build_reference(seed=123)), x, method="gradient", target="expected")
+    rho = spearmanr(trained.flatten().numpy(), random.flatten().numpy()).statistic
+    assert rho < 0.5
