@@ -73,7 +73,6 @@ class ReferenceNet(nn.Module):
     def __init__(self, *, channels=8, features=32):
         super().__init__()
         c = channels
-        size = REFERENCE_SPEC.size
         self.features = nn.Sequential(
             nn.Conv3d(1, c, 3, padding=1), nn.ReLU(),
             nn.Conv3d(c, c, 3, stride=(1, 2, 2), padding=1), nn.ReLU(),
@@ -85,8 +84,6 @@ class ReferenceNet(nn.Module):
         self.classifier = nn.Sequential(
             nn.Linear(features, 32), nn.ReLU(), nn.Linear(32, len(CATEGORIES))
         )
-        self.register_buffer("centre_half", _centre_weights((size + 1) // 2, 2.5), persistent=False)
-        self.register_buffer("centre_full", _centre_weights(size, 5.0), persistent=False)
 
     def encode_segments(self, x):
         """Features ``(B, S, C)`` of ``x (B, S, N, H, W)`` in HU."""
@@ -96,9 +93,9 @@ class ReferenceNet(nn.Module):
         h = a.shape[-1]
         lo, hi = h // 4, h - h // 4
         profiles = torch.cat([
-            (a * self.centre_half).sum(dim=(3, 4)),
+            (a * _centre_weights(h, 2.5).to(a)).sum(dim=(3, 4)),
             a[..., lo:hi, lo:hi].amax(dim=(3, 4)),
-            (z * self.centre_full).sum(dim=(3, 4)),
+            (z * _centre_weights(z.shape[-1], 5.0).to(z)).sum(dim=(3, 4)),
         ], dim=1)  # (B*S, 2c + 1, N)
         f = self.along(profiles).amax(dim=2)
         return f.reshape(b, s, -1)
