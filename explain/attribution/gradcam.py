@@ -98,8 +98,10 @@ def gradcam(wrapped, x, target, *, layer=None, layer_stride=None, layer_offset=N
     """
     name, module_layer = _layer(wrapped, layer)
     if layer is None:
-        layer_stride = layer_stride if layer_stride is not None else getattr(wrapped.module, "cam_stride", None)
-        layer_offset = layer_offset if layer_offset is not None else getattr(wrapped.module, "cam_offset", None)
+        if layer_stride is None:
+            layer_stride = getattr(wrapped.module, "cam_stride", None)
+        if layer_offset is None:
+            layer_offset = getattr(wrapped.module, "cam_offset", None)
     n, h, w = x.shape[2:]
     with torch.no_grad():
         feats = wrapped.encode(x)[0]

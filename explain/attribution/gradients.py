@@ -44,7 +44,9 @@ def gradient_x_input(wrapped, x, target):
     return _per_segment(InputXGradient, wrapped, x, target)
 
 
-def smoothgrad(wrapped, x, target, *, n=50, noise=0.15, seed=0, internal_batch_size=None, abs=False):  # noqa: A002
+def smoothgrad(  # noqa: A002 - captum's name for the abs option
+    wrapped, x, target, *, n=50, noise=0.15, seed=0, internal_batch_size=None, abs=False,
+):
     """SmoothGrad: the mean gradient over ``n`` copies with Gaussian noise of sd ``noise`` x HU range."""
     if isinstance(n, bool) or not isinstance(n, int) or n < 1:
         raise InputError(f"smoothgrad n: expected a positive number of samples, got {n!r}")

@@ -31,7 +31,10 @@ def _shape3(value, name):
     return vals
 
 
-def occlusion(wrapped, x, target, *, window=(4, 8, 8), stride=None, baseline_hu=0.0, internal_batch_size=None):
+def occlusion(
+    wrapped, x, target, *, window=(4, 8, 8), stride=None, baseline_hu=0.0,
+    internal_batch_size=None,
+):
     """Occlusion maps ``(1, S, N, H, W)``; ``internal_batch_size`` windows per encoder call."""
     window = _shape3(window, "window")
     stride = window if stride is None else _shape3(stride, "stride")

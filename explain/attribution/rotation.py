@@ -131,7 +131,12 @@ def rotation_average(compute, resample, *, rotations, x0=None):
                 value = float(spearmanr(ra, rb).statistic)
             rho[a, b] = rho[b, a] = value
     off = rho[~np.eye(k, dtype=bool)]
-    agreement = float(np.nanmean(off)) if off.size and not np.all(np.isnan(off)) else (1.0 if k == 1 else float("nan"))
+    if k == 1:
+        agreement = 1.0
+    elif np.all(np.isnan(off)):
+        agreement = float("nan")
+    else:
+        agreement = float(np.nanmean(off))
     return RotationAverage(
         mean=torch.from_numpy(mean.astype(np.float32)), angles_deg=angles, spearman=rho,
         agreement=agreement,

@@ -166,7 +166,10 @@ def _sampled_shapley(value_head, feats, base, *, n_permutations, seed, batch):
         rows = np.arange(count)[:, None]
         marginals[start + rows, perms] = gains
     mean = marginals.mean(axis=0)
-    stderr = marginals.std(axis=0, ddof=1) / math.sqrt(n_permutations) if n_permutations > 1 else np.full(s, np.nan)
+    if n_permutations > 1:
+        stderr = marginals.std(axis=0, ddof=1) / math.sqrt(n_permutations)
+    else:
+        stderr = np.full(s, np.nan)
     return mean, stderr
 
 
