@@ -181,7 +181,10 @@ def culprit_figure(explanation, method):
         ax.set_xlabel("arc length from segment start (mm)")
         ax.set_ylabel("offset (mm)")
         if r == 0:
-            ax.legend(loc="upper right", fontsize=7, framealpha=0.8)
+            handles, labels = ax.get_legend_handles_labels()
+            unique = dict(zip(labels, handles))
+            fig.legend(unique.values(), unique.keys(), loc="upper left", ncol=3, fontsize=8,
+                       frameon=False, bbox_to_anchor=(0.05, 0.945))
     ax = fig.add_subplot(grid[:, 1])
     box = (-half_w, half_w, -half_h, half_h)
     ax.imshow(ct[k], cmap="gray", vmin=CT_WINDOW_HU[0], vmax=CT_WINDOW_HU[1], origin="lower",
@@ -201,7 +204,7 @@ def culprit_figure(explanation, method):
         f"peak at {peak.arc_mm:.1f} mm, voxel {peak.voxel}")
     fig.suptitle(f"Culprit {seg.label}, {method}: {where}; CT window "
                  f"{CT_WINDOW_HU[0]:g} to {CT_WINDOW_HU[1]:g} HU", fontsize=10)
-    fig.subplots_adjust(left=0.06, right=0.9, top=0.9, bottom=0.09)
+    fig.subplots_adjust(left=0.06, right=0.9, top=0.86, bottom=0.09)
     return fig
 
 
