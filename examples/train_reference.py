@@ -10,7 +10,8 @@ patient (no lesion positions are used) and writes ``explain/model/reference.pt``
 scores the held-out cohort and writes ``explain/model/reference-metrics.json`` (accuracy,
 confusion matrix, settings), from which docs/reference-model.md quotes; ``test`` renders a
 third cohort (cohort seed 303), used once for the network finally kept, and adds its scores
-to the metrics file under ``"test"``.
+to the metrics file under ``"test"``; ``culprit`` traces every held-out case with lesions and
+counts how often the Shapley culprit is a segment that sets the grade (``"heldout_culprit"``).
 """
 
 from __future__ import annotations
@@ -70,6 +71,7 @@ def make_data(cache, name, *, seed, count, rotations):
     for i, case in enumerate(iter_cohort(count=count, seed=seed)):
         for r in rotations:
             arrays[f"x{i}_{int(r)}"] = sample(case, r)
+        arrays[f"ids{i}"] = np.array(case.segment_ids)
         labels.append(CATEGORIES.index(case.reference["grade"]))
         ids.append(case.seed)
         if i % 20 == 0:
@@ -171,10 +173,46 @@ def evaluate(cache, weights, minutes, *, name="heldout"):
     }
 
 
+def culprits(cache, weights):
+    """How often the Shapley culprit is a segment that sets the grade, on the held-out cohort."""
+    from explain.attribution import trace_segments
+    from explain.model import load_model
+    from explain.phantom import make_phantom, plan_cohort
+    from explain.phantom.cohort import grade_segments
+
+    wrapped = load_model("builtin:reference", weights=weights)
+    data = np.load(cache / "heldout.npz")
+    per_category = {}
+    for entry in plan_cohort(count=SETTINGS["heldout_count"], seed=SETTINGS["heldout_cohort_seed"]):
+        if entry.category == "0":
+            continue
+        key = f"ids{entry.index}"
+        if key in data:
+            ids = [int(v) for v in data[key]]
+        else:  # caches written before the ids were stored: rebuild the case to learn them
+            ids = list(make_phantom(seed=entry.seed, lesions=entry.lesions).segment_ids)
+        stenosis = {sid: 0.0 for sid in ids}
+        for spec in entry.lesions:
+            stenosis[spec.segment] = max(stenosis[spec.segment], spec.percent)
+        setting = grade_segments(stenosis, entry.category, [spec.segment for spec in entry.lesions])
+        x = torch.from_numpy(data[f"x{entry.index}_0"].astype(np.float32))[None]
+        trace = trace_segments(wrapped, x, target="expected")
+        hit = ids[trace.culprit] in setting
+        per_category.setdefault(entry.category, [0, 0])
+        per_category[entry.category][0] += int(hit)
+        per_category[entry.category][1] += 1
+    hits = sum(h for h, _ in per_category.values())
+    total = sum(n for _, n in per_category.values())
+    return {"cases_with_lesions": total, "culprit_sets_grade": hits,
+            "culprit_sets_grade_fraction": hits / total,
+            "per_category_hits_of_cases": per_category, "target": "expected"}
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cache", type=Path, required=True)
-    parser.add_argument("--stage", choices=("data", "train", "eval", "test", "all"), default="all")
+    parser.add_argument("--stage", choices=("data", "train", "eval", "test", "culprit", "all"),
+                        default="all")
     parser.add_argument("--out", type=Path, default=ROOT / "explain" / "model" / "reference.pt")
     args = parser.parse_args()
     args.cache.mkdir(parents=True, exist_ok=True)
@@ -196,6 +234,12 @@ def main():
         path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
         print(json.dumps({k: metrics[k] for k in ("heldout_accuracy", "heldout_within_one_category")}))
         print(np.array(metrics["confusion_rows_true_cols_predicted"]))
+    if args.stage == "culprit":
+        path = args.out.with_name("reference-metrics.json")
+        metrics = json.loads(path.read_text(encoding="utf-8"))
+        metrics["heldout_culprit"] = culprits(args.cache, args.out)
+        path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
+        print(json.dumps(metrics["heldout_culprit"]))
     if args.stage == "test":
         path = args.out.with_name("reference-metrics.json")
         metrics = json.loads(path.read_text(encoding="utf-8"))
