@@ -72,11 +72,15 @@ def _layer(wrapped, layer):
     if layer is None:
         layer = getattr(module, "cam_layer", None)
     if layer is None:
-        names = [n for n, m in module.named_modules() if isinstance(m, (torch.nn.Conv2d, torch.nn.Conv3d))]
-        raise InputError(
-            f"gradcam: name the encoder layer with layer=...; convolutions of {wrapped.name!r}: "
-            f"{', '.join(names) or 'none found'}"
-        )
+        # common practice (no source): the last convolution of the encoder
+        convs = (torch.nn.Conv2d, torch.nn.Conv3d)
+        names = [n for n, m in module.named_modules() if isinstance(m, convs)]
+        if not names:
+            raise InputError(
+                f"gradcam: {wrapped.name!r} has no Conv2d/Conv3d layer and no cam_layer; name "
+                "an encoder layer with layer=..."
+            )
+        layer = names[-1]
     try:
         return layer, module.get_submodule(layer)
     except AttributeError:
@@ -89,7 +93,8 @@ def gradcam(wrapped, x, target, *, layer=None, layer_stride=None, layer_offset=N
     Parameters
     ----------
     layer : str, optional
-        Dotted name of an encoder layer (``module.get_submodule``); default ``module.cam_layer``.
+        Dotted name of an encoder layer (``module.get_submodule``); default ``module.cam_layer``,
+        else the module's last Conv2d/Conv3d.
     layer_stride, layer_offset : float or tuple of float, optional
         Input pixels between layer cells, and the input pixel of cell 0's centre, per axis
         (3 axes for a 3D layer over N x H x W, 2 for a 2D layer applied per cross-section).

@@ -176,3 +176,16 @@ def test_gradcam_2d_layer_per_cross_section_equals_captum():
     cam = LayerGradCam(net, net.conv).attribute(x.clone(), target=1, relu_attributions=True)
     ref = LayerAttribution.interpolate(cam, (6, 6), interpolate_mode="bilinear")
     torch.testing.assert_close(ours, ref.reshape(x.shape), **TOL)
+
+
+def test_gradcam_default_layer_is_the_last_convolution():
+    w = wrap_model(h.tm.SmallConv())
+    x = h.patient(s=2, seed=5)
+    torch.testing.assert_close(
+        attribute(w, x, method="gradcam", target=0),
+        attribute(w, x, method="gradcam", target=0, layer="conv2"),
+    )
+    with pytest.raises(InputError, match="no Conv2d/Conv3d"):
+        attribute(wrap_model(h.tm.DarkestLumen()), x, method="gradcam", target=0)
+    with pytest.raises(InputError, match="no such submodule"):
+        attribute(w, x, method="gradcam", target=0, layer="conv9")
