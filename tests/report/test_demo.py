@@ -112,3 +112,21 @@ def test_demo_overlay_peaks_in_or_next_to_the_lesion(demo, method):
     # lesion mask or next to it (26-neighbourhood).
     assert report["culprit"]["segment_id"] == report["reference"]["lesions"][0]["segment"]
     assert _overlay_peak_near_lesion(out, method)
+
+
+@pytest.mark.slow
+@pytest.mark.browser
+def test_demo_page_in_headless_chromium(demo, tmp_path, chromium):
+    out, html = demo
+    dom, console = chromium.run(html, tmp_path, "--dump-dom")
+    assert console == []
+    assert "Case phantom-0" in dom
+    result = chromium.probe(html, tmp_path)
+    figures = json.loads((out / "report.json").read_text())["files"]["figures"]
+    assert result["count"] == len(figures)
+    assert all(isinstance(size, list) and min(size) > 100 for size in result["sizes"])
+    chromium.artifacts.mkdir(exist_ok=True)
+    shot = chromium.artifacts / "report-demo.png"
+    shot.unlink(missing_ok=True)
+    chromium.run(html, tmp_path, f"--screenshot={shot}", "--window-size=1200,3200")
+    assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
