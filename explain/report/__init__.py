@@ -6,6 +6,8 @@ explain_case, Explanation, SegmentResult, DEFAULT_METHODS
     explanation.py: run every step on one case; the result and its ``write``.
 run_demo
     demo.py: a phantom case explained with the bundled reference model.
+check_out_dir
+    files.py: refuse a non-empty output folder before any work (the CLI calls it first).
 
 Files written (docs/report-format.md): report.json (jsonout.py), segments.csv (tables.py),
 attributions.npz and overlays (files.py), figures/*.png (figures.py), report.html (html.py).
@@ -14,8 +16,10 @@ attributions.npz and overlays (files.py), figures/*.png (figures.py), report.htm
 from __future__ import annotations
 
 from .explanation import DEFAULT_METHODS, Explanation, SegmentResult, explain_case
+from .files import check_out_dir
 
-__all__ = ["DEFAULT_METHODS", "Explanation", "SegmentResult", "explain_case", "run_demo"]
+__all__ = ["DEFAULT_METHODS", "Explanation", "SegmentResult", "check_out_dir", "explain_case",
+           "run_demo"]
 
 
 def __getattr__(name):

@@ -13,7 +13,25 @@ from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
 from .tables import segments_csv
 
-__all__ = ["write_into", "write_overlays", "write_attributions"]
+__all__ = ["check_out_dir", "write_into", "write_overlays", "write_attributions"]
+
+
+def check_out_dir(out_dir, *, force=False, field="--out"):
+    """Refuse an output folder before any work is done (the same rule the write applies).
+
+    Raises :class:`~explain.errors.InputError` when ``out_dir`` exists and is not a folder, or is
+    a non-empty folder and ``force`` is false. Nothing is created or changed.
+    """
+    from ..errors import InputError
+
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"{field}: {out_dir} exists and is not a folder; choose another path")
+    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
+        raise InputError(
+            f"{field}: {out_dir} exists and is not empty; choose a new folder or pass --force "
+            "to replace it")
+    return out_dir
 
 
 def _say(progress, message):

@@ -175,3 +175,18 @@ def test_input_strings_are_escaped(tmp_path, synth):
     assert "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt;&amp;co" in page
     # report.json keeps the text as it was.
     assert json.loads((out / "report.json").read_text())["case_id"].startswith("<script>")
+
+
+def test_check_out_dir_refuses_before_any_work(tmp_path):
+    from explain.report import check_out_dir
+
+    assert check_out_dir(tmp_path / "new") == tmp_path / "new"
+    assert not (tmp_path / "new").exists()
+    full = tmp_path / "full"
+    full.mkdir()
+    (full / "x").write_text("x")
+    with pytest.raises(InputError, match="--out: .* not empty"):
+        check_out_dir(full)
+    assert check_out_dir(full, force=True) == full and (full / "x").exists()
+    with pytest.raises(InputError, match="not a folder"):
+        check_out_dir(full / "x")
