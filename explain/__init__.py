@@ -52,6 +52,7 @@ _NAMES = {
     "METHODS": "attribution",
     "Explanation": "report",
     "explain_case": "report",
+    "run_demo": "report",
 }
 
 __all__ = sorted(_NAMES) + ["CAUTION", "__version__"]

@@ -50,15 +50,18 @@ def _explain_options(args):
 
 def _cmd_explain(args):
     from .case import load_case
+    from .report.files import check_out_dir
 
     progress = _say(args.quiet)
-    case = load_case(args.case)  # the case first: a bad case fails before torch is imported
+    # Cheap checks first: a refused output folder or a bad case fails before any computing.
+    check_out_dir(args.out, force=args.force)
+    case = load_case(args.case)
     from .model import load_model
     from .report import explain_case
 
     model = load_model(args.model, weights=args.weights)
     explanation = explain_case(model, case, progress=progress, **_explain_options(args))
-    html = explanation.write(args.out, force=args.force)
+    html = explanation.write(args.out, force=args.force, progress=progress)
     print(f"culprit: segment {explanation.culprit_label}; report: {html}")
     return 0
 
