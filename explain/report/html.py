@@ -104,8 +104,10 @@ def _segment_table(report):
     culprit = report["culprit"]["segment_id"]
     for s in report["segments"]:
         row = [_td(f"{_e(s['id'])} ({_e(s['abbr'])})"), _td(_e(s["name"])), _td(_e(s["territory"])),
-               _td(_num(s["shapley"]), True), _td(_num(s["leave_one_out"]), True),
-               _td(_num(s["gradient"]), True), _td(_e(len(s["winning_channels"])), True),
+               # fixed decimals in target units: float noise (~1e-7) of an exact
+               # difference reads as 0.000, not as 4.768e-07
+               _td(_num(s["shapley"], ".3f"), True), _td(_num(s["leave_one_out"], ".3f"), True),
+               _td(_num(s["gradient"], ".3f"), True), _td(_e(len(s["winning_channels"])), True),
                _td(_num(s["reference_stenosis_percent"], "g"), True)]
         for m in methods:
             peak = s["peaks"].get(m)
