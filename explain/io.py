@@ -24,6 +24,7 @@ __all__ = [
     "write_image",
     "write_text",
     "atomic_output_dir",
+    "check_output_dir",
     "same_geometry",
 ]
 
@@ -173,6 +174,27 @@ def write_text(text, path):
     return path
 
 
+def check_output_dir(out_dir, *, force=False, field="--out"):
+    """Refuse an output folder before any work is done (the rule :func:`atomic_output_dir` applies).
+
+    Raises :class:`InputError` when ``out_dir`` exists and is not a folder, or is a non-empty
+    folder and ``force`` is false. Nothing is created or changed.
+
+    Returns
+    -------
+    Path
+    """
+    out_dir = Path(out_dir)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(f"{field}: {out_dir} exists and is not a folder; choose another path")
+    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
+        raise InputError(
+            f"{field}: {out_dir} exists and is not empty; choose a new folder or pass --force "
+            "to replace it"
+        )
+    return out_dir
+
+
 @contextlib.contextmanager
 def atomic_output_dir(out_dir, *, force=False, field="--out"):
     """Build an output folder in a temporary folder beside it; move it into place on success.
@@ -185,14 +207,7 @@ def atomic_output_dir(out_dir, *, force=False, field="--out"):
     Path
         The temporary folder to write into.
     """
-    out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"{field}: {out_dir} exists and is not a folder; choose another path")
-    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
-        raise InputError(
-            f"{field}: {out_dir} exists and is not empty; choose a new folder or pass --force "
-            "to replace it"
-        )
+    out_dir = check_output_dir(out_dir, force=force, field=field)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
     temp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
     os.chmod(temp, 0o777 & ~_umask())  # mkdtemp makes it private (0700)

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..io import write_image, write_text
+from ..io import check_output_dir, write_image, write_text
 from ..mapping import lumen_label, overlay
 from .figures import write_figures
 from .html import report_html
@@ -17,21 +17,8 @@ __all__ = ["check_out_dir", "write_into", "write_overlays", "write_attributions"
 
 
 def check_out_dir(out_dir, *, force=False, field="--out"):
-    """Refuse an output folder before any work is done (the same rule the write applies).
-
-    Raises :class:`~explain.errors.InputError` when ``out_dir`` exists and is not a folder, or is
-    a non-empty folder and ``force`` is false. Nothing is created or changed.
-    """
-    from ..errors import InputError
-
-    out_dir = Path(out_dir)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(f"{field}: {out_dir} exists and is not a folder; choose another path")
-    if out_dir.is_dir() and any(out_dir.iterdir()) and not force:
-        raise InputError(
-            f"{field}: {out_dir} exists and is not empty; choose a new folder or pass --force "
-            "to replace it")
-    return out_dir
+    """Refuse an output folder before any work is done (see :func:`explain.io.check_output_dir`)."""
+    return check_output_dir(out_dir, force=force, field=field)
 
 
 def _say(progress, message):
