@@ -99,7 +99,7 @@ def test_culprit_is_the_most_stenosed_segment(results):
 # improve. strict=True: once it passes, this marker must go.
 OCCLUSION_SHORT = pytest.mark.xfail(
     strict=True, reason="reference model: occlusion peak within 5 mm in 60 % of held-out cases "
-                        "(needs >= 80 %); the model helper improves the model")
+                        "(needs >= 80 %); the model must improve, not the threshold")
 
 
 @pytest.mark.parametrize("method", ["integrated_gradients",
