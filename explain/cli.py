@@ -15,16 +15,6 @@ from .errors import CulpritLensError, InputError
 __all__ = ["main", "build_parser"]
 
 
-def _say(quiet):
-    if quiet:
-        return None
-
-    def progress(message):
-        print(f"  {message}", file=sys.stderr, flush=True)
-
-    return progress
-
-
 def _cmd_phantom(args):
     from .phantom import parse_lesion, write_cohort, write_phantom_case
 
@@ -50,9 +40,10 @@ def _explain_options(args):
 
 def _cmd_explain(args):
     from .case import load_case
+    from .report.demo import progress_printer
     from .report.files import check_out_dir
 
-    progress = _say(args.quiet)
+    progress = progress_printer(args.quiet)
     # Cheap checks first: a refused output folder or a bad case fails before any computing.
     check_out_dir(args.out, force=args.force)
     case = load_case(args.case)

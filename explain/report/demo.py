@@ -16,13 +16,14 @@ import dataclasses
 import sys
 from pathlib import Path
 
-__all__ = ["DEMO_LESIONS", "run_demo"]
+__all__ = ["DEMO_LESIONS", "progress_printer", "run_demo"]
 
 #: The demo's lesion: a 70 % soft plaque in the mid LAD (CAD-RADS 4A).
 DEMO_LESIONS = ("7:70:soft",)
 
 
-def _progress(quiet):
+def progress_printer(quiet):
+    """A callable printing one indented progress line to stderr, or None when ``quiet``."""
     if quiet:
         return None
 
@@ -61,7 +62,7 @@ def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None):
     from .files import write_into
 
     out_dir = Path(out_dir)
-    say = _progress(quiet)
+    say = progress_printer(quiet)
     with atomic_output_dir(out_dir, force=force) as staging:
         if say:
             say(f"making phantom case (seed {seed}, lesion {', '.join(DEMO_LESIONS)})")
