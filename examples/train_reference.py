@@ -11,7 +11,9 @@ scores the held-out cohort and writes ``explain/model/reference-metrics.json`` (
 confusion matrix, settings), from which docs/reference-model.md quotes; ``test`` renders a
 third cohort (cohort seed 303), used once for the network finally kept, and adds its scores
 to the metrics file under ``"test"``; ``culprit`` traces every held-out case with lesions and
-counts how often the Shapley culprit is a segment that sets the grade (``"heldout_culprit"``).
+counts how often the Shapley culprit is a segment that sets the grade (``"heldout_culprit"``);
+``probe`` puts one occlusion-sized 0 HU box into healthy vessels of grade-0 held-out patients
+and counts how often the grade stays (``"grade0_one_box"``).
 """
 
 from __future__ import annotations
@@ -97,7 +99,7 @@ def batch_of(stacks):
 
 
 def augment(x, gen):
-    """Random quarter turns and flips of the cross-sections, and reversal along the segment."""
+    """Random quarter turns and flips of the cross-sections ``x (S, N, H, W)``."""
     k = int(torch.randint(4, (1,), generator=gen))
     x = torch.rot90(x, k, dims=(2, 3))
     if torch.rand(1, generator=gen) < 0.5:
@@ -173,6 +175,37 @@ def evaluate(cache, weights, minutes, *, name="heldout"):
     }
 
 
+def box_probe(cache, weights, *, tries=10, seed=0):
+    """How often one occlusion-sized 0 HU box in a grade-0 patient leaves the prediction alone.
+
+    The box is the occlusion window of ``explain_case`` (4 cross-sections x 8 x 8 pixels, filled
+    with the 0 HU baseline) on the central pixels of a random segment of a held-out grade-0
+    patient, at a random place along it (numpy seed ``seed``, ``tries`` boxes per patient).
+    """
+    xs, ys, _ = load(cache / "heldout.npz")
+    net = build_reference()
+    net.load_state_dict(torch.load(weights, weights_only=True))
+    net.eval()
+    rng = np.random.default_rng(seed)
+    unchanged, total, became = 0, 0, [0] * len(CATEGORIES)
+    with torch.no_grad():
+        for x, y in zip(xs, ys):
+            if int(y) != 0:
+                continue
+            x = x[0][None]
+            before = int(net(x).argmax(1))
+            for _ in range(tries):
+                hidden = x.clone()
+                s, n = int(rng.integers(x.shape[1])), int(rng.integers(x.shape[2] - 3))
+                hidden[0, s, n:n + 4, 8:16, 8:16] = 0.0
+                after = int(net(hidden).argmax(1))
+                unchanged += after == before
+                became[after] += 1
+                total += 1
+    return {"boxes": total, "prediction_unchanged": unchanged,
+            "predicted_with_box": dict(zip(CATEGORIES, became)), "seed": seed}
+
+
 def culprits(cache, weights):
     """How often the Shapley culprit is a segment that sets the grade, on the held-out cohort."""
     from explain.attribution import trace_segments
@@ -211,7 +244,7 @@ def culprits(cache, weights):
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cache", type=Path, required=True)
-    parser.add_argument("--stage", choices=("data", "train", "eval", "test", "culprit", "all"),
+    parser.add_argument("--stage", choices=("data", "train", "eval", "test", "culprit", "probe", "all"),
                         default="all")
     parser.add_argument("--out", type=Path, default=ROOT / "explain" / "model" / "reference.pt")
     args = parser.parse_args()
@@ -240,6 +273,12 @@ def main():
         metrics["heldout_culprit"] = culprits(args.cache, args.out)
         path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
         print(json.dumps(metrics["heldout_culprit"]))
+    if args.stage == "probe":
+        path = args.out.with_name("reference-metrics.json")
+        metrics = json.loads(path.read_text(encoding="utf-8"))
+        metrics["grade0_one_box"] = box_probe(args.cache, args.out)
+        path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
+        print(json.dumps(metrics["grade0_one_box"]))
     if args.stage == "test":
         path = args.out.with_name("reference-metrics.json")
         metrics = json.loads(path.read_text(encoding="utf-8"))
