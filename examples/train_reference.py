@@ -267,18 +267,14 @@ def main():
         path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
         print(json.dumps({k: metrics[k] for k in ("heldout_accuracy", "heldout_within_one_category")}))
         print(np.array(metrics["confusion_rows_true_cols_predicted"]))
-    if args.stage == "culprit":
+    extra = {"culprit": ("heldout_culprit", culprits), "probe": ("grade0_one_box", box_probe)}
+    if args.stage in extra:
+        key, measure = extra[args.stage]
         path = args.out.with_name("reference-metrics.json")
         metrics = json.loads(path.read_text(encoding="utf-8"))
-        metrics["heldout_culprit"] = culprits(args.cache, args.out)
+        metrics[key] = measure(args.cache, args.out)
         path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
-        print(json.dumps(metrics["heldout_culprit"]))
-    if args.stage == "probe":
-        path = args.out.with_name("reference-metrics.json")
-        metrics = json.loads(path.read_text(encoding="utf-8"))
-        metrics["grade0_one_box"] = box_probe(args.cache, args.out)
-        path.write_text(json.dumps(metrics, indent=1) + "\n", encoding="utf-8")
-        print(json.dumps(metrics["grade0_one_box"]))
+        print(json.dumps(metrics[key]))
     if args.stage == "test":
         path = args.out.with_name("reference-metrics.json")
         metrics = json.loads(path.read_text(encoding="utf-8"))
