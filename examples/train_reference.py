@@ -144,11 +144,16 @@ def train(cache, out):
     return time.perf_counter() - t0
 
 
-def evaluate(cache, weights, minutes, *, name="heldout"):
-    xs, ys, seeds = load(cache / f"{name}.npz")
+def trained(weights):
+    """The reference network with the weights saved at ``weights``, in eval mode."""
     net = build_reference()
     net.load_state_dict(torch.load(weights, weights_only=True))
-    net.eval()
+    return net.eval()
+
+
+def evaluate(cache, weights, minutes, *, name="heldout"):
+    xs, ys, seeds = load(cache / f"{name}.npz")
+    net = trained(weights)
     k = len(CATEGORIES)
     confusion = np.zeros((k, k), dtype=int)
     with torch.no_grad():
@@ -183,10 +188,9 @@ def box_probe(cache, weights, *, tries=10, seed=0):
     patient, at a random place along it (numpy seed ``seed``, ``tries`` boxes per patient).
     """
     xs, ys, _ = load(cache / "heldout.npz")
-    net = build_reference()
-    net.load_state_dict(torch.load(weights, weights_only=True))
-    net.eval()
+    net = trained(weights)
     rng = np.random.default_rng(seed)
+    lo = REFERENCE_SPEC.size // 2 - 4  # the central 8 x 8 occlusion window of the plane
     unchanged, total, became = 0, 0, [0] * len(CATEGORIES)
     with torch.no_grad():
         for x, y in zip(xs, ys):
@@ -197,7 +201,7 @@ def box_probe(cache, weights, *, tries=10, seed=0):
             for _ in range(tries):
                 hidden = x.clone()
                 s, n = int(rng.integers(x.shape[1])), int(rng.integers(x.shape[2] - 3))
-                hidden[0, s, n:n + 4, 8:16, 8:16] = 0.0
+                hidden[0, s, n:n + 4, lo:lo + 8, lo:lo + 8] = 0.0
                 after = int(net(hidden).argmax(1))
                 unchanged += after == before
                 became[after] += 1
