@@ -1,7 +1,8 @@
 """The bundled reference network: a compact 3D CNN per segment, a max over segments, a small head.
 
 Our own small design for synthetic phantoms. Each segment's stack of cross-sections
-``(N, H, W)`` in HU is normalised inside the network, passed through two 3x3x3 convolutions,
+``(N, H, W)`` in HU is normalised inside the network, given a local-texture channel (so that a
+flat, hidden window is told apart from noisy tissue), passed through two 3x3x3 convolutions,
 summarised per cross-section (centre-weighted mean and central maximum), filtered along the segment by
 two 1D convolutions and reduced to ``C`` features by a maximum along the segment; the patient
 vector is the maximum of those over segments; a two-layer head gives one logit per CAD-RADS 2.0
@@ -14,6 +15,7 @@ from __future__ import annotations
 from importlib import resources
 
 import torch
+import torch.nn.functional as F
 from torch import nn
 
 from ..errors import ModelError
@@ -29,6 +31,22 @@ WEIGHTS_FILE = "reference.pt"
 # HU window of the normalisation: fat (-100) to bright lumen and calcium (+600)
 _CENTRE_HU = 250.0
 _SCALE_HU = 350.0
+# Texture channel: local sd in units of about the image noise (20-30 HU), with a floor
+_NOISE_HU = 25.0
+_FLOOR_HU = 2.0
+
+
+def local_sd(z):
+    """In-plane 3 x 3 local standard deviation of ``z (B, 1, N, H, W)``, in units of ~noise.
+
+    A window filled with one value (an occlusion window, say) reads about 0.08 inside; noisy
+    tissue about 0.5-1; a lumen or calcium edge more. The floor keeps the square root smooth.
+    """
+    k, pad = (1, 3, 3), (0, 1, 1)
+    m = F.avg_pool3d(z, k, stride=1, padding=pad, count_include_pad=False)
+    m2 = F.avg_pool3d(z * z, k, stride=1, padding=pad, count_include_pad=False)
+    var = (m2 - m * m).clamp_min(0.0)
+    return torch.sqrt(var + (_FLOOR_HU / _SCALE_HU) ** 2) * (_SCALE_HU / _NOISE_HU)
 
 
 def _centre_weights(size, sigma):
@@ -50,13 +68,15 @@ class ReferenceNet(nn.Module):
 
     Notes
     -----
-    Per segment: two 3x3x3 convolutions over the stack (N, H, W), the second with stride 2 in
-    the plane; per cross-section, a centre-weighted mean (Gaussian, sd 2.5 px of the half-size
-    grid, about 2.5 mm) and the maximum over the central half of the plane of each channel, and
-    the centre-weighted mean of the normalised HU itself: lumen-, plaque- and calcium-like
-    profiles along the segment, blind to what lies far from the centerline; two 1D convolutions
-    along the segment (width 5, the second dilated by 2, no padding) that compare a
-    cross-section with its neighbours over about 13 sections; the maximum along the segment.
+    Per segment: the normalised HU and its in-plane 3 x 3 local standard deviation
+    (:func:`local_sd`) as two input channels; two 3x3x3 convolutions over the stack (N, H, W),
+    the second with stride 2 in the plane; per cross-section, a centre-weighted mean (Gaussian,
+    sd 2.5 px of the half-size grid, about 2.5 mm) and the maximum over the central half of the
+    plane of each channel, and the centre-weighted mean of the normalised HU itself: lumen-,
+    plaque- and calcium-like profiles along the segment, blind to what lies far from the
+    centerline; two 1D convolutions along the segment (width 5, the second dilated by 2, no
+    padding) that compare a cross-section with its neighbours over about 13 sections; the
+    maximum along the segment.
     The patient vector is the maximum over segments.
 
     Layer geometry (for Grad-CAM): ``features.2`` (second 3D convolution, kernel 3, padding 1,
@@ -74,7 +94,7 @@ class ReferenceNet(nn.Module):
         super().__init__()
         c = channels
         self.features = nn.Sequential(
-            nn.Conv3d(1, c, 3, padding=1), nn.ReLU(),
+            nn.Conv3d(2, c, 3, padding=1), nn.ReLU(),
             nn.Conv3d(c, c, 3, stride=(1, 2, 2), padding=1), nn.ReLU(),
         )
         self.along = nn.Sequential(
@@ -89,7 +109,7 @@ class ReferenceNet(nn.Module):
         """Features ``(B, S, C)`` of ``x (B, S, N, H, W)`` in HU."""
         b, s = x.shape[:2]
         z = ((x - _CENTRE_HU) / _SCALE_HU).reshape(b * s, 1, *x.shape[2:])
-        a = self.features(z)  # (B*S, c, N, h, w), h = ceil(H / 2)
+        a = self.features(torch.cat([z, local_sd(z)], dim=1))  # (B*S, c, N, h, w), h = ceil(H / 2)
         h = a.shape[-1]
         lo, hi = h // 4, h - h // 4
         profiles = torch.cat([

@@ -56,3 +56,23 @@ def test_maps_fail_to_survive_weight_randomisation(reference):
     random = attribute(wrap_model(build_reference(seed=123)), x, method="gradient", target="expected")
     rho = spearmanr(trained.flatten().numpy(), random.flatten().numpy()).statistic
     assert rho < 0.5
+
+
+def test_texture_channel_is_the_local_standard_deviation():
+    # outside reference: scipy.ndimage.generic_filter with numpy's population sd over the
+    # in-plane 3 x 3 neighbourhood (pixels outside the plane left out, as nanstd does)
+    import numpy as np
+    from scipy import ndimage
+
+    from explain.model.reference import _FLOOR_HU, _NOISE_HU, _SCALE_HU, local_sd
+
+    g = torch.Generator().manual_seed(0)
+    z = torch.randn((1, 1, 3, 7, 6), generator=g, dtype=torch.float64)
+    z[0, 0, 1, 1:5, 1:5] = 0.25  # a flat window
+    want = ndimage.generic_filter(z[0, 0].numpy(), np.nanstd, size=(1, 3, 3), mode="constant",
+                                  cval=np.nan)
+    want = np.sqrt(want**2 + (_FLOOR_HU / _SCALE_HU) ** 2) * (_SCALE_HU / _NOISE_HU)
+    got = local_sd(z)[0, 0].numpy()
+    np.testing.assert_allclose(got, want, rtol=1e-9, atol=1e-9)
+    # inside the flat window only the floor is left: 2 HU / 25 HU (arithmetic)
+    np.testing.assert_allclose(got[1, 2:4, 2:4], _FLOOR_HU / _NOISE_HU, rtol=1e-6)

@@ -98,13 +98,7 @@ def _overlay_peak_near_lesion(out, method):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("method", [
-    "integrated_gradients",
-    # Same shortfall as in test_reference_accuracy.py (occlusion within 5 mm in 60 % of held-out
-    # cases with the weights of 2026-12-01 23:15); strict, so the marker goes once it passes.
-    pytest.param("occlusion", marks=pytest.mark.xfail(
-        strict=True, reason="reference model: occlusion peaks away from the demo lesion")),
-])
+@pytest.mark.parametrize("method", ["integrated_gradients", "occlusion"])
 def test_demo_overlay_peaks_in_or_next_to_the_lesion(demo, method):
     out, _ = demo
     report = json.loads((out / "report.json").read_text())

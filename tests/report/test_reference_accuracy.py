@@ -94,16 +94,7 @@ def test_culprit_is_the_most_stenosed_segment(results):
     assert results["culprit_rate"] >= 0.9, misses
 
 
-# Measured with the weights of 2026-12-01 23:15 (hash 2727d8530d28): occlusion peaks within 5 mm
-# in 12 of 20 cases (60 %), short of the 80 %; the threshold stays, the model must
-# improve. strict=True: once it passes, this marker must go.
-OCCLUSION_SHORT = pytest.mark.xfail(
-    strict=True, reason="reference model: occlusion peak within 5 mm in 60 % of held-out cases "
-                        "(needs >= 80 %); the model must improve, not the threshold")
-
-
-@pytest.mark.parametrize("method", ["integrated_gradients",
-                                    pytest.param("occlusion", marks=OCCLUSION_SHORT)])
+@pytest.mark.parametrize("method", ["integrated_gradients", "occlusion"])
 def test_peak_within_5_mm_of_the_lesion_centre(results, method):
     misses = [(r["seed"], r["lesion"], r[f"{method}_arc_mm"], r["lesion_centre_mm"])
               for r in results["rows"] if not r[f"{method}_hit"]]
