@@ -115,8 +115,8 @@ def initial_network(seed):
 
     The texture channel was added to a design with one input channel: torch's seeded default
     initialisation drew every layer of that design (first convolution with one input channel),
-    and then the first convolution again with two. Drawing in the same order keeps the shipped
-    weights reproducible from ``seed``.
+    and then the first convolution again with two. Drawing in the same order gives the same
+    initial weights as the shipped run from the same ``seed``.
     """
     c, features = 8, 32
     state = torch.random.get_rng_state()
