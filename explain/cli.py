@@ -93,9 +93,10 @@ def build_parser():
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
     exp.add_argument("--methods", type=_methods, default=None,
                      help="comma-separated saliency methods (default: the report's defaults)")
-    exp.add_argument("--target", default="predicted",
-                     help="output column index, 'predicted', 'expected', or KEY[:INDEX] for "
-                          "dict outputs (default predicted)")
+    exp.add_argument("--target", default="auto",
+                     help="output column index, 'predicted', 'expected', 'auto', or KEY[:INDEX] "
+                          "for dict outputs (default auto: the expected CAD-RADS category when "
+                          "the model's grade labels are CAD-RADS categories, else predicted)")
     exp.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
     exp.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
     exp.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")

@@ -8,6 +8,12 @@ patient in it:
   that changes the winner does not change what is measured);
 - ``"expected"``: the expected CAD-RADS category, sum over the grade columns of softmax
   probability times category rank (0 for "0" ... 6 for "5");
+- ``"auto"`` (the default of :func:`explain.explain_case` and the command line): ``"expected"``
+  when the model's grade labels name at least two CAD-RADS categories, else ``"predicted"``.
+  CAD-RADS is an ordered scale; a segment that pushes a patient from 2 towards 4A raises the
+  expected category, but it can lower the logit of the predicted column 2, so for a model that
+  under-grades, the predicted column names the wrong segment. The expected category also has a
+  unit (CAD-RADS categories), which segment contributions then share;
 - for dict outputs ``"key"`` (a one-column entry, or the grade entry), ``"key:3"``,
   ``"key:predicted"`` or ``"key:expected"``.
 """
@@ -64,6 +70,15 @@ def _entry(output, key):
     return output
 
 
+def _cadrads_columns(grade_labels):
+    """(column, rank) pairs of the grade labels that are CAD-RADS categories (may be empty)."""
+    return tuple(
+        (c, CATEGORIES.index(str(lab).upper()))
+        for c, lab in enumerate(grade_labels)
+        if str(lab).upper() in CATEGORIES
+    )
+
+
 def _grade_ranks(n_columns, grade_labels):
     if grade_labels is None:
         return tuple((c, c) for c in range(n_columns))
@@ -72,11 +87,7 @@ def _grade_ranks(n_columns, grade_labels):
             f"grade_labels: {len(grade_labels)} labels for {n_columns} output columns; "
             "give one label per column"
         )
-    pairs = tuple(
-        (c, CATEGORIES.index(str(lab).upper()))
-        for c, lab in enumerate(grade_labels)
-        if str(lab).upper() in CATEGORIES
-    )
+    pairs = _cadrads_columns(grade_labels)
     if not pairs:
         raise InputError(
             f"target 'expected': none of the grade labels {list(grade_labels)} is a CAD-RADS "
@@ -98,11 +109,15 @@ def _one(output, key, what, grade_labels, label):
             )
         return Target(key, 0)
     if isinstance(what, bool):
-        raise InputError(f"target: expected an int, 'predicted' or 'expected', got {what!r}")
+        raise InputError(f"target: expected an int, 'predicted', 'expected' or 'auto', got {what!r}")
     if isinstance(what, int):
         if not -k <= what < k:
             raise InputError(f"target {label!r}: column {what} outside 0..{k - 1}")
         return Target(key, what % k)
+    if what == "auto":
+        graded = (grade_labels is not None and len(grade_labels) == k
+                  and len(_cadrads_columns(grade_labels)) >= 2)
+        what = "expected" if graded else "predicted"
     if what == "predicted":
         if out.shape[0] != 1:
             raise InputError("target 'predicted': resolve it for one patient at a time (B = 1)")
@@ -114,7 +129,7 @@ def _one(output, key, what, grade_labels, label):
         column = int(what)
     except (TypeError, ValueError):
         raise InputError(
-            f"target {label!r}: expected a column index, 'predicted' or 'expected'"
+            f"target {label!r}: expected a column index, 'predicted', 'expected' or 'auto'"
         ) from None
     return _one(output, key, column, grade_labels, label)
 

@@ -256,7 +256,7 @@ def _prediction(output, grade_labels):
             "probabilities": {lab: float(p) for lab, p in zip(labels, probs)}}
 
 
-def explain_case(model, case, *, methods=None, target="predicted", points=None, size=None,
+def explain_case(model, case, *, methods=None, target="auto", points=None, size=None,
                  pixel_mm=None, baseline_hu=0.0, seed=0, progress=None):
     """Explain one case with a wrapped model.
 
@@ -269,7 +269,9 @@ def explain_case(model, case, *, methods=None, target="predicted", points=None, 
     methods : sequence of str, optional
         Saliency methods (:data:`explain.attribution.METHODS`); default :data:`DEFAULT_METHODS`.
     target : int or str
-        Output column, ``"predicted"``, ``"expected"`` or ``"key:index"`` (dict outputs).
+        Output column, ``"predicted"``, ``"expected"``, ``"auto"`` or ``"key:index"`` (dict
+        outputs). ``"auto"``: the expected CAD-RADS category when the model's grade labels are
+        CAD-RADS categories, else the predicted column (see :mod:`explain.model.targets`).
     points, size, pixel_mm : int, int, float, optional
         Cross-section sampling; default the model's spec (explicit values win).
     baseline_hu : float

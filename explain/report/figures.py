@@ -32,7 +32,7 @@ METHOD_UNITS = {
     "smoothgrad": "target per HU",
     "integrated_gradients": "target units",
     "gradcam": "target units x activation",
-    "occlusion": "target drop",
+    "occlusion": "drop in target units",
 }
 
 #: CT grey window for the straightened views, HU (shows fat, muscle and enhanced lumen).
@@ -52,8 +52,17 @@ def _new_figure(width, height):
     return fig
 
 
-def _units(method):
-    return METHOD_UNITS.get(method, "attribution")
+def _target_unit(explanation):
+    """What one unit of the target is: CAD-RADS categories for the expected category."""
+    label = str(explanation.target["label"])
+    return "CAD-RADS categories" if label.split(":")[-1] == "expected" else "target units"
+
+
+def _units(method, explanation):
+    units = METHOD_UNITS.get(method, "attribution")
+    if _target_unit(explanation) == "target units":
+        return units
+    return units.replace("target units", "target").replace("target", "CAD-RADS categories")
 
 
 def _aggregate(explanation, method):
@@ -116,7 +125,7 @@ def profile_figure(explanation, method):
         ax.spines[["top", "right"]].set_visible(False)
     axes[-1].set_xlabel("arc length, segments laid end to end (mm); dashed lines: segment ends")
     what = "absolute" if _aggregate(e, method) == "absolute" else "positive"
-    fig.suptitle(f"{method}: sum of {what} attribution per cross-section ({_units(method)})"
+    fig.suptitle(f"{method}: sum of {what} attribution per cross-section ({_units(method, e)})"
                  + ("; shaded: reference lesions" if lesions else ""), fontsize=10)
     fig.tight_layout(rect=(0, 0, 1, 0.97))
     return fig
@@ -199,7 +208,7 @@ def culprit_figure(explanation, method):
     ax.set_ylabel("v (mm)")
     cax = fig.add_subplot(grid[:, 2])
     bar = fig.colorbar(mappable, cax=cax)
-    bar.set_label(f"{method} per pixel ({_units(method)})", fontsize=9)
+    bar.set_label(f"{method} per pixel ({_units(method, e)})", fontsize=9)
     where = "no attribution to locate" if peak is None else (
         f"peak at {peak.arc_mm:.1f} mm, voxel {peak.voxel}")
     fig.suptitle(f"Culprit {seg.label}, {method}: {where}; CT window "
@@ -227,7 +236,7 @@ def contribution_figure(explanation):
         if index == e.culprit_index:
             tick.set_fontweight("bold")
     ax.axvline(0, color="black", lw=0.8)
-    ax.set_xlabel(f"contribution to the target {e.target['label']!s} (target units)")
+    ax.set_xlabel(f"contribution to the target {e.target['label']!s} ({_target_unit(e)})")
     ax.set_title(f"Segment contributions; culprit {e.culprit.label} (margin {e.margin:.3g})",
                  fontsize=10)
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
@@ -318,7 +327,7 @@ def tree_figure(explanation):
     ax.set_title(f"Schematic tree (not to scale), culprit {culprit.label}; grey dashed: "
                  "not in this case", fontsize=9)
     fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax,
-                 label="Shapley value (target units)")
+                 label=f"Shapley value ({_target_unit(e)})")
     return fig
 
 

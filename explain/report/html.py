@@ -80,8 +80,9 @@ def _td(text, numeric=False):
 def _target_words(label):
     if isinstance(label, int):
         return f"output column {_e(label)}"
-    if label == "expected":
-        return "the expected CAD-RADS category"
+    if str(label).split(":")[-1] == "expected":
+        key = str(label).rpartition(":")[0]
+        return "the expected CAD-RADS category" + (f" of output {_e(key)}" if key else "")
     return f"output {_e(label)}"
 
 

@@ -45,3 +45,27 @@ def test_dict_targets():
         resolve_target(out, "grade")
     with pytest.raises(InputError, match="outside"):
         resolve_target(out, "grade:5")
+
+
+def test_auto_is_the_expected_category_for_a_cadrads_grader():
+    # ranks are the CAD-RADS 2.0 order 0,1,2,3,4A,4B,5 (Cury 2022); softmax from scipy.special
+    logits = np.array([[0.3, -1.0, 2.0, 0.5, 0.0, -0.2, 1.1]])
+    t = resolve_target(torch.tensor(logits), "auto", grade_labels=CATEGORIES)
+    assert t.label == "expected"
+    want = float((softmax(logits[0]) * np.arange(7)).sum())
+    assert float(t(torch.tensor(logits))) == pytest.approx(want, rel=1e-12)
+
+
+@pytest.mark.parametrize("labels", [None, ("benign", "malignant", "unsure"), ("0", "high", "low")])
+def test_auto_is_the_predicted_column_without_cadrads_labels(labels):
+    out = torch.tensor([[0.0, 3.0, 1.0]])
+    t = resolve_target(out, "auto", grade_labels=labels)
+    assert t.label == 1          # the arg-max column, as "predicted" gives
+    assert t(torch.tensor([[9.0, 0.5, 0.0]])).tolist() == [0.5]
+
+
+def test_auto_on_a_dict_output_needs_the_entry_named():
+    out = {"grade": torch.zeros(1, 7), "score": torch.zeros(1, 1)}
+    assert resolve_target(out, "grade:auto", grade_labels=CATEGORIES).label == "grade:expected"
+    with pytest.raises(InputError, match="name one"):
+        resolve_target(out, "auto", grade_labels=CATEGORIES)

@@ -105,3 +105,23 @@ def test_same_seed_same_maps(model, dark_case):
     first = run(5)
     np.testing.assert_array_equal(run(5), first)
     assert not np.array_equal(run(6), first)
+
+
+def test_default_target_is_the_expected_category_for_cadrads_labels(synth, dark_case):
+    # The same model, its two columns labelled as CAD-RADS 2.0 categories 0 and 4A (Cury 2022):
+    # the default target "auto" explains the expected category, softmax(scores) . (0, 4),
+    # checked against scipy.special.softmax.
+    from scipy.special import softmax
+
+    graded = wrap_model(synth.DarkCentre(), grade_labels=["0", "4A"], name="dark-centre")
+    e = explain_case(graded, dark_case, methods=("gradient",), points=20, size=11, pixel_mm=0.5,
+                     baseline_hu=350.0)
+    assert e.settings["target"] == "auto"
+    assert e.target["label"] == "expected"
+    scores = [e.prediction["scores"][k] for k in ("0", "4A")]
+    assert e.target["value"] == pytest.approx(float(softmax(scores) @ [0.0, 4.0]), rel=1e-6)
+    assert e.culprit.id == 7
+    # Labels that are not CAD-RADS categories: "auto" explains the predicted column.
+    plain = explain_case(wrap_model(synth.DarkCentre(), grade_labels=["none", "dark"]), dark_case,
+                         methods=("gradient",), points=20, size=11, pixel_mm=0.5, baseline_hu=350.0)
+    assert plain.target["label"] == 1
