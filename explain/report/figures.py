@@ -59,10 +59,11 @@ def _target_unit(explanation):
 
 
 def _units(method, explanation):
-    units = METHOD_UNITS.get(method, "attribution")
-    if _target_unit(explanation) == "target units":
+    """METHOD_UNITS of ``method``, in CAD-RADS categories where the target is the expected one."""
+    units, unit = METHOD_UNITS.get(method, "attribution"), _target_unit(explanation)
+    if unit == "target units":
         return units
-    return units.replace("target units", "target").replace("target", "CAD-RADS categories")
+    return units.replace("target units", unit).replace("target", unit)
 
 
 def _aggregate(explanation, method):

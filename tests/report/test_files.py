@@ -190,3 +190,22 @@ def test_check_out_dir_refuses_before_any_work(tmp_path):
     assert check_out_dir(full, force=True) == full and (full / "x").exists()
     with pytest.raises(InputError, match="not a folder"):
         check_out_dir(full / "x")
+
+
+def test_figures_state_the_unit_of_the_target(synthetic_explanation):
+    # An explained column is in the model's own units, the expected CAD-RADS category in
+    # categories; the figures say which (a wording check, no outside source).
+    import dataclasses
+
+    from explain.report.figures import contribution_figure, profile_figure
+
+    def labels(e):
+        fig = contribution_figure(e)
+        return fig.axes[0].get_xlabel(), profile_figure(e, e.methods[0])._suptitle.get_text()
+
+    column = labels(synthetic_explanation)
+    assert all("target units" in text for text in column)
+    expected = dataclasses.replace(synthetic_explanation,
+                                   target={"requested": "auto", "label": "expected", "value": 2.4})
+    assert all("CAD-RADS categories" in text and "target" not in text.split("(")[-1]
+               for text in labels(expected))
