@@ -35,6 +35,7 @@ from explain.geometry import Centerline, sample_cross_sections  # noqa: E402
 from explain.grading import CATEGORIES  # noqa: E402
 from explain.model.reference import REFERENCE_SPEC, ReferenceNet, build_reference  # noqa: E402
 from explain.phantom import iter_cohort  # noqa: E402
+from explain.report.explanation import OCCLUSION_WINDOW  # noqa: E402
 
 SETTINGS = {
     "train_cohort_seed": 101,
@@ -150,15 +151,16 @@ def add_boxes(x, gen):
         return x
     x = x.clone()
     s, n, h, w = x.shape
+    bn, bh, bw = OCCLUSION_WINDOW
     for _ in range(int(torch.randint(1, SETTINGS["box_most"] + 1, (1,), generator=gen))):
         si = int(torch.randint(s, (1,), generator=gen))
-        ni = int(torch.randint(n - 3, (1,), generator=gen))
+        ni = int(torch.randint(n - bn + 1, (1,), generator=gen))
         if float(torch.rand(1, generator=gen)) < 0.5:
-            i = j = h // 2 - 4
+            i, j = h // 2 - bh // 2, w // 2 - bw // 2
         else:
-            i = int(torch.randint(h - 7, (1,), generator=gen))
-            j = int(torch.randint(w - 7, (1,), generator=gen))
-        x[si, ni:ni + 4, i:i + 8, j:j + 8] = 0.0
+            i = int(torch.randint(h - bh + 1, (1,), generator=gen))
+            j = int(torch.randint(w - bw + 1, (1,), generator=gen))
+        x[si, ni:ni + bn, i:i + bh, j:j + bw] = 0.0
     return x
 
 
@@ -245,7 +247,8 @@ def box_probe(cache, weights, *, tries=10, seed=0):
     xs, ys, _ = load(cache / "heldout.npz")
     net = trained(weights)
     rng = np.random.default_rng(seed)
-    lo = REFERENCE_SPEC.size // 2 - 4  # the central 8 x 8 occlusion window of the plane
+    bn, bh, bw = OCCLUSION_WINDOW
+    i, j = REFERENCE_SPEC.size // 2 - bh // 2, REFERENCE_SPEC.size // 2 - bw // 2  # plane centre
     unchanged, total, became = 0, 0, [0] * len(CATEGORIES)
     with torch.no_grad():
         for x, y in zip(xs, ys):
@@ -255,8 +258,8 @@ def box_probe(cache, weights, *, tries=10, seed=0):
             before = int(net(x).argmax(1))
             for _ in range(tries):
                 hidden = x.clone()
-                s, n = int(rng.integers(x.shape[1])), int(rng.integers(x.shape[2] - 3))
-                hidden[0, s, n:n + 4, lo:lo + 8, lo:lo + 8] = 0.0
+                s, n = int(rng.integers(x.shape[1])), int(rng.integers(x.shape[2] - bn + 1))
+                hidden[0, s, n:n + bn, i:i + bh, j:j + bw] = 0.0
                 after = int(net(hidden).argmax(1))
                 unchanged += after == before
                 became[after] += 1

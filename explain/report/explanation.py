@@ -18,10 +18,13 @@ from .. import CAUTION, __version__
 from ..errors import InputError, ModelError
 from ..mapping import locate
 
-__all__ = ["DEFAULT_METHODS", "SegmentResult", "Explanation", "explain_case"]
+__all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW", "SegmentResult", "Explanation", "explain_case"]
 
 #: Methods computed when none are named: the two the localisation checks use, and Grad-CAM.
 DEFAULT_METHODS = ("integrated_gradients", "occlusion", "gradcam")
+
+#: Occlusion window: cross-sections along the arc x pixels x pixels (clipped to the stack).
+OCCLUSION_WINDOW = (4, 8, 8)
 
 #: How each map's profile is aggregated per cross-section (see :mod:`explain.mapping`).
 #: Gradients are sensitivities whose sign says which way HU would have to move, so their
@@ -208,8 +211,8 @@ def _check_methods(methods):
 def method_settings(method, shape, *, seed):
     """The options each method runs with (recorded in the report's settings).
 
-    Occlusion slides a window of 4 cross-sections x 8 x 8 pixels (clipped to the stack's shape
-    ``(N, H, W)``), by 2 cross-sections along the arc and a whole window in-plane: overlapping
+    Occlusion slides a window of :data:`OCCLUSION_WINDOW`, 4 cross-sections x 8 x 8 pixels
+    (clipped to the stack's shape ``(N, H, W)``), by 2 cross-sections along the arc and a whole window in-plane: overlapping
     along the vessel locates the peak to about two cross-sections, at a cost a CPU bears for a
     full tree (about 2000 single-segment encoder runs for 15 segments of 32 x 24 x 24).
     """
@@ -217,7 +220,7 @@ def method_settings(method, shape, *, seed):
     if method == "integrated_gradients":
         return {"steps": 50}
     if method == "occlusion":
-        window = (min(4, n), min(8, h), min(8, w))
+        window = tuple(min(a, b) for a, b in zip(OCCLUSION_WINDOW, (n, h, w)))
         return {"window": window, "stride": (max(1, window[0] // 2), window[1], window[2])}
     if method == "smoothgrad":
         return {"n": 50, "noise": 0.15, "seed": seed}

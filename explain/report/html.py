@@ -36,7 +36,7 @@ code{font-size:.92em}
 
 _CAPTIONS = {
     "contributions": "Contribution of each segment to the target: exact Shapley value over "
-                     "segments and leave-one-out (target units).",
+                     "segments and leave-one-out, in the target's units (named on the axis).",
     "tree": "Schematic coronary tree (our own drawing, not to scale) coloured by Shapley value; "
             "the star marks the peak of the first method along the culprit.",
     "culprit": "The culprit segment straightened: two longitudinal cuts through its "
