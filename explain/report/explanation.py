@@ -212,9 +212,9 @@ def method_settings(method, shape, *, seed):
     """The options each method runs with (recorded in the report's settings).
 
     Occlusion slides a window of :data:`OCCLUSION_WINDOW`, 4 cross-sections x 8 x 8 pixels
-    (clipped to the stack's shape ``(N, H, W)``), by 2 cross-sections along the arc and a whole window in-plane: overlapping
-    along the vessel locates the peak to about two cross-sections, at a cost a CPU bears for a
-    full tree (about 2000 single-segment encoder runs for 15 segments of 32 x 24 x 24).
+    (clipped to the stack's shape ``(N, H, W)``), by 2 cross-sections along the arc and a whole
+    window in-plane: overlapping along the vessel locates the peak to about two cross-sections,
+    at a cost a CPU bears for a full tree (about 2000 single-segment encoder runs for 15 segments of 32 x 24 x 24).
     """
     n, h, w = shape
     if method == "integrated_gradients":
