@@ -109,7 +109,9 @@ class Explanation:
         ``grade`` (label of the arg-max column), ``scores`` (raw output per column label),
         ``probabilities`` (softmax of the scores).
     target : dict
-        ``requested`` (as given), ``label`` (resolved), ``value`` (the target at this patient).
+        ``requested`` (as given), ``label`` (resolved), ``value`` (the target at this patient),
+        ``value_all`` and ``value_none``: ``v(all segments)`` and ``v(no segment)`` of the
+        segment trace (target units; their difference is the sum of the Shapley values).
     segments : tuple of SegmentResult
         Ascending SCCT number.
     culprit_index : int
@@ -363,7 +365,8 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
                "weights_hash": getattr(model, "weights_hash", None),
                "grade_labels": None if grade_labels is None else [str(g) for g in grade_labels]},
         settings=settings, prediction=_prediction(output, grade_labels),
-        target={"requested": settings["target"], "label": label, "value": target_value},
+        target={"requested": settings["target"], "label": label, "value": target_value,
+                "value_all": float(trace.value_all), "value_none": float(trace.value_empty)},
         segments=segments, culprit_index=int(trace.culprit), margin=float(trace.margin),
         maps=maps, notes=tuple(notes),
     )

@@ -148,3 +148,16 @@ def test_trace_errors_and_repr():
     tr = trace_segments(w, h.patient(s=3), target="predicted")
     assert "culprit=" in repr(tr) and "shapley exact" in repr(tr)
     assert isinstance(tr.target_index, int)
+
+
+def test_culprit_doubts_rules_by_hand():
+    # Hand-worked cases of the two documented rules (our own rule, common practice, no source):
+    # a margin equal to a tenth of |v(all) - v(none)| is not below it: clear
+    from explain.attribution.trace import LOW_MARGIN_FRACTION, culprit_doubts
+
+    assert LOW_MARGIN_FRACTION == 0.10
+    assert culprit_doubts([0.55, 0.45], 0.1, 1.0, 0.0) == ()
+    assert culprit_doubts([0.54, 0.46], 0.08, 1.0, 0.0) == ("low_margin",)
+    assert culprit_doubts([0.0, 0.0], 0.0, 0.0, 0.0) == ("no_positive_segment",)
+    assert culprit_doubts([-0.1, -0.4], 0.3, -0.5, 0.0) == ("no_positive_segment",)
+    assert culprit_doubts([0.0, -0.4], 0.4, -0.4, 0.0) == ("no_positive_segment",)
