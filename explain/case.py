@@ -18,7 +18,7 @@ import SimpleITK as sitk
 
 from .anatomy import check_segment_id, segment_info
 from .errors import InputError
-from .geometry.centerline import Centerline
+from .geometry.centerline import Centerline, distinct_rows
 from .grading import CATEGORIES
 from .io import read_image, same_geometry
 
@@ -216,9 +216,8 @@ def _load_segments(path, data, image, *, ramus_territory, outside_tolerance_mm):
             centerline = Centerline(points)
         except InputError as exc:
             raise InputError(f"{csv_path}: {exc}") from None
-        if len(centerline.points_mm) != len(points) and radius is not None:
-            keep = np.concatenate([[True], np.any(np.diff(points, axis=0) != 0, axis=1)])
-            radius = radius[keep]
+        if radius is not None:
+            radius = radius[distinct_rows(points)]
         notes.extend(f"{csv_path.name}: {note}" for note in centerline.notes)
         outside = _outside_mm(image, centerline.points_mm)
         if outside.max() > outside_tolerance_mm:

@@ -342,8 +342,12 @@ def lumen_label(like, centerline_mm, radius_mm=None, *, label=1):
     points = np.asarray(centerline_mm, dtype=np.float64)
     if points.ndim != 2 or points.shape[1] != 3 or points.shape[0] < 2:
         raise InputError(f"centerline_mm: expected (n >= 2, 3) points, got shape {points.shape}")
-    radius = np.broadcast_to(np.asarray(DEFAULT_RADIUS_MM if radius_mm is None else radius_mm,
-                                        dtype=np.float64), points.shape[:1])
+    radius = np.asarray(DEFAULT_RADIUS_MM if radius_mm is None else radius_mm, dtype=np.float64)
+    if radius.ndim > 1 or radius.size not in (1, len(points)):
+        raise InputError(f"radius_mm: expected one radius per centerline point ({len(points)}) "
+                         f"or a single radius, got shape {radius.shape}; de-duplicate per-point "
+                         "columns with explain.geometry.centerline.distinct_rows")
+    radius = np.broadcast_to(radius.reshape(-1), points.shape[:1])
     if not (np.isfinite(radius).all() and (radius >= 0).all()):
         raise InputError("radius_mm: expected finite radii >= 0 in mm (0 where the lumen is "
                          "occluded)")

@@ -166,6 +166,21 @@ def test_centerline_duplicates_dropped_with_note(case_dir):
     assert any("seg1.csv" in note for note in case.notes)
 
 
+def test_near_duplicate_drops_the_same_radius_row(case_dir):
+    # Issue 15 section 1: points 1e-7 mm apart (not bit-equal) are one point for the centerline,
+    # so the radius row beside the dropped point must go too, and the lumen label must build.
+    from explain.mapping import lumen_label
+    pts = np.array([[25, -15, 8], [25, -15, 9], [25, -15, 9 + 1e-7], [25, -15, 10]], float)
+    radius = np.array([1.0, 1.1, 9.9, 1.3])  # 9.9 marks the row that must be dropped
+    _write_csv(case_dir / "centerlines" / "seg1.csv", pts, radius=radius)
+    case = load_case(case_dir)
+    seg1 = case.segment(1)
+    assert len(seg1.centerline.points_mm) == 3
+    assert seg1.radius_mm.tolist() == [1.0, 1.1, 1.3]
+    label = lumen_label(case.image, seg1.centerline.points_mm, seg1.radius_mm)
+    assert sitk.GetArrayViewFromImage(label).any()
+
+
 def test_centerline_far_outside_image(case_dir):
     # the image spans x 9.75..29.75 mm; a point at x = 60 mm is far outside
     _write_csv(case_dir / "centerlines" / "seg1.csv", np.array([[25, -15, 8], [60, -15, 8]], float))

@@ -176,6 +176,35 @@ def rotation_minimizing_frames(points, tangents, *, initial_normal=None):
     return np.stack([t, normals, binormals], axis=1)
 
 
+def distinct_rows(points_mm):
+    """Which rows a :class:`Centerline` keeps: the one de-duplication rule for per-point data.
+
+    Every per-point array read beside the points (radius, and any column added later) must be
+    indexed with this mask so that it stays row-aligned with :attr:`Centerline.points_mm`.
+
+    Parameters
+    ----------
+    points_mm : (n, 3) float, mm
+        Points in input order.
+
+    Returns
+    -------
+    (n,) bool
+        True for a kept row: the first row, and each row more than ``DUPLICATE_MM`` from the
+        row before it.
+
+    Examples
+    --------
+    >>> distinct_rows([[0.0, 0.0, 0.0], [0.0, 0.0, 1e-7], [3.0, 4.0, 0.0]]).tolist()
+    [True, False, True]
+    """
+    points = np.asarray(points_mm, dtype=np.float64)
+    if len(points) < 2:
+        return np.ones(len(points), dtype=bool)
+    step = np.linalg.norm(np.diff(points, axis=0), axis=1)
+    return np.concatenate([[True], step > DUPLICATE_MM])
+
+
 class Centerline:
     """The centerline of one vessel segment, proximal to distal, in mm.
 
@@ -218,8 +247,7 @@ class Centerline:
         points = _as_points(points_mm, "points_mm")
         notes = []
         if len(points) > 1:
-            step = np.linalg.norm(np.diff(points, axis=0), axis=1)
-            duplicate = np.concatenate([[False], step <= DUPLICATE_MM])
+            duplicate = ~distinct_rows(points)
             if duplicate.any():
                 rows = np.flatnonzero(duplicate)
                 shown = rows[:10].tolist()

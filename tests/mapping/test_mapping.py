@@ -212,3 +212,17 @@ def test_peak_outside_the_image_is_flagged():
     assert peak.voxel[1] < 0 and not peak.inside_image
     m[1, 2, 0], m[1, 2, 4] = 0.0, 1.0
     assert find_peak(m, pts, arc, image=image).inside_image
+
+
+def test_lumen_label_radius_count_mismatch_is_input_error():
+    # Issue 15 section 1: a radius array out of step with the points is a clear InputError,
+    # never a bare numpy ValueError.
+    import numpy as np
+    import pytest
+    import SimpleITK as sitk
+    from explain.errors import InputError
+    from explain.mapping import lumen_label
+    like = sitk.Image(8, 8, 8, sitk.sitkFloat32)
+    points = np.array([[1.0, 1.0, 1.0], [1.0, 1.0, 4.0], [1.0, 1.0, 6.0]])
+    with pytest.raises(InputError, match="radius_mm: expected one radius per centerline point"):
+        lumen_label(like, points, np.ones(4))
