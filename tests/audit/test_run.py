@@ -120,7 +120,15 @@ def test_dask_local_cluster_equals_local_run(cohort, reference_run, tmp_path):
     assert without_seconds(tmp_path / "dask" / "cases.csv") == without_seconds(out / "cases.csv")
     ours = json.loads((tmp_path / "dask" / "summary.json").read_text())
     theirs = json.loads((out / "summary.json").read_text())
-    assert ours == theirs
+    # Counts, confusion and rates are exact. The metric means are sums of full-precision floats
+    # computed by torch in another kind of process: they may differ in the last bit.
+    assert {k: v for k, v in ours.items() if k != "metrics"} == \
+        {k: v for k, v in theirs.items() if k != "metrics"}
+    assert ours["metrics"].keys() == theirs["metrics"].keys()
+    for name, stats in ours["metrics"].items():
+        for key, value in stats.items():
+            other = theirs["metrics"][name][key]
+            assert value == other or value == pytest.approx(other, rel=1e-12), (name, key)
 
 
 def _start(cohort, out, workers):
@@ -150,7 +158,7 @@ def test_killed_run_resumes_to_the_same_result(cohort, reference_run, tmp_path):
     proc = _start(cohort, target, workers=1)
     seen = _wait_for_rows(target, proc, 1)
     os.killpg(proc.pid, signal.SIGKILL)  # the run and its worker, at once
-    proc.wait(timeout=30)
+    proc.communicate(timeout=30)
     assert seen < 6 and not (target / "cases.csv").exists()
     result = run_audit(cohort, "builtin:reference", target, workers=1, **OPTIONS)
     assert without_seconds(target / "cases.csv") == without_seconds(out / "cases.csv")
