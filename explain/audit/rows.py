@@ -14,7 +14,7 @@ import math
 from ..grading import CATEGORIES
 
 __all__ = ["base_columns", "columns", "report_row", "failed_row", "grade_error", "rows_csv",
-           "reference_culprit"]
+           "reference_culprit", "along_arc_localisation"]
 
 _FIRST = ("case_id", "case", "status", "error", "seconds", "reference_grade", "predicted_grade",
           "grade_error", "culprit", "reference_culprit", "culprit_hit", "margin")
@@ -64,6 +64,38 @@ def reference_culprit(report):
     return min(k for k, v in stenosis.items() if v == top)
 
 
+def along_arc_localisation(report, method):
+    """Where ``method``'s culprit peak lies against the reference lesions, along the arc.
+
+    Used when the report carries no ``quality`` object. The peak is the method's peak on the
+    explained culprit (``culprit.where[method].arc_mm``); the lesions are the reference lesions
+    on that same segment, each the closed arc interval [``start_mm``, ``end_mm``].
+
+    Returns
+    -------
+    (pointing_hit, peak_error_mm) : (bool or None, float or None)
+        ``pointing_hit`` is true when the peak lies in a lesion's interval; ``peak_error_mm`` is
+        the arc distance in mm from the peak to the nearest interval (0 inside one). Both None
+        without a reference, with no lesion on the segment, or with no peak.
+
+    Examples
+    --------
+    >>> rep = {"culprit": {"segment_id": 2, "where": {"g": {"arc_mm": 12.0}}},
+    ...        "reference": {"lesions": [{"segment": 2, "start_mm": 15.0, "end_mm": 20.0}]}}
+    >>> along_arc_localisation(rep, "g")
+    (False, 3.0)
+    """
+    culprit = report.get("culprit") or {}
+    peak = ((culprit.get("where") or {}).get(method) or {}).get("arc_mm")
+    lesions = [(float(l["start_mm"]), float(l["end_mm"]))
+               for l in ((report.get("reference") or {}).get("lesions") or ())
+               if int(l.get("segment", -1)) == culprit.get("segment_id")]
+    if peak is None or not lesions:
+        return None, None
+    error = min(max(start - peak, peak - end, 0.0) for start, end in lesions)
+    return error == 0.0, error
+
+
 def _predicted_grade(report):
     grade = (report.get("prediction") or {}).get("grade")
     labels = (report.get("model") or {}).get("grade_labels")
@@ -86,9 +118,14 @@ def report_row(report, *, case_id, case, seconds, methods):
         "culprit": culprit["segment_id"], "reference_culprit": reference_culprit(report),
         "culprit_hit": local.get("culprit_hit"), "margin": culprit.get("margin"),
     }
+    if not quality and row["reference_culprit"] is not None:
+        row["culprit_hit"] = row["culprit"] == row["reference_culprit"]
     for m in methods:
-        row[f"{m}_pointing_hit"] = (local.get("pointing_hit") or {}).get(m)
-        row[f"{m}_peak_error_mm"] = (local.get("peak_error_mm") or {}).get(m)
+        if quality:
+            row[f"{m}_pointing_hit"] = (local.get("pointing_hit") or {}).get(m)
+            row[f"{m}_peak_error_mm"] = (local.get("peak_error_mm") or {}).get(m)
+        else:
+            row[f"{m}_pointing_hit"], row[f"{m}_peak_error_mm"] = along_arc_localisation(report, m)
         row[f"{m}_relevance_mass"] = (local.get("relevance_mass") or {}).get(m)
     row["flags"] = ";".join(quality.get("flags") or ())
     return row

@@ -65,3 +65,23 @@ def test_summary_counts_rates_and_flags():
     assert s["pointing_rate"]["ig"]["value"] == 0.5
     assert s["metrics"]["ig_peak_error_mm"] == {"n": 2, "mean": 3.0, "median": 3.0}
     assert s["flags"] == {"low_margin": 2, "on_border": 1}
+
+
+def test_along_arc_localisation_worked_by_hand():
+    """Arc distance from a point to closed intervals, worked by hand (no outside source needed:
+    the distance from x to [a, b] is max(a - x, x - b, 0))."""
+    from explain.audit.rows import along_arc_localisation, report_row
+    rep = {"culprit": {"segment_id": 6, "margin": 0.3,
+                       "where": {"g": {"arc_mm": 31.5}, "o": {"arc_mm": 9.0}, "n": {"arc_mm": None}}},
+           "reference": {"grade": "3", "stenosis_percent": {"6": 60, "1": 20},
+                         "lesions": [{"segment": 6, "start_mm": 10.0, "end_mm": 14.0},
+                                     {"segment": 6, "start_mm": 30.0, "end_mm": 33.0},
+                                     {"segment": 1, "start_mm": 0.0, "end_mm": 50.0}]},
+           "segments": [{"id": 1}, {"id": 6}], "prediction": {"grade": "3"},
+           "model": {"grade_labels": ["0", "1", "2", "3", "4A", "4B", "5"]}}
+    assert along_arc_localisation(rep, "g") == (True, 0.0)
+    assert along_arc_localisation(rep, "o") == (False, 1.0)
+    assert along_arc_localisation(rep, "n") == (None, None)
+    row = report_row(rep, case_id="c", case="c/case.json", seconds=1.0, methods=["g", "o"])
+    assert row["culprit_hit"] is True and row["o_peak_error_mm"] == 1.0
+    assert row["grade_error"] == 0
