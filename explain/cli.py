@@ -65,8 +65,35 @@ def _cmd_demo(args):
     return 0
 
 
+def _cmd_audit(args):
+    from .audit import run_audit
+
+    result = run_audit(
+        args.cohort, args.model, args.out, workers=args.workers, scheduler=args.scheduler,
+        weights=args.weights, force=args.force, quiet=args.quiet, **_explain_options(args))
+    c = result.summary["counts"]
+    print(f"audited {c['rows']} cases: {c['ok']} explained, {c['failed']} failed; "
+          f"page: {result.out_dir / 'index.html'}")
+    return result.exit_status
+
+
 def _methods(text):
     return tuple(m.strip() for m in text.split(",") if m.strip())
+
+
+def _add_explain_options(cmd):
+    cmd.add_argument("--methods", type=_methods, default=None,
+                     help="comma-separated saliency methods (default: the report's defaults)")
+    cmd.add_argument("--target", default="auto",
+                     help="output column index, 'predicted', 'expected', 'auto', or KEY[:INDEX] "
+                          "for dict outputs (default auto: the expected CAD-RADS category when "
+                          "the model's grade labels are CAD-RADS categories, else predicted)")
+    cmd.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
+    cmd.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
+    cmd.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")
+    cmd.add_argument("--baseline-hu", type=float, default=0.0,
+                     help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
+    cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
 
 
 def build_parser():
@@ -91,21 +118,29 @@ def build_parser():
                      help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
     exp.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
-    exp.add_argument("--methods", type=_methods, default=None,
-                     help="comma-separated saliency methods (default: the report's defaults)")
-    exp.add_argument("--target", default="auto",
-                     help="output column index, 'predicted', 'expected', 'auto', or KEY[:INDEX] "
-                          "for dict outputs (default auto: the expected CAD-RADS category when "
-                          "the model's grade labels are CAD-RADS categories, else predicted)")
-    exp.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
-    exp.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
-    exp.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")
-    exp.add_argument("--baseline-hu", type=float, default=0.0,
-                     help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
-    exp.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
+    _add_explain_options(exp)
     exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     exp.add_argument("--quiet", action="store_true", help="no progress messages")
     exp.set_defaults(run=_cmd_explain)
+
+    aud = sub.add_parser("audit", help="explain every case of a cohort and rank the misgraded "
+                                       "ones (local processes or a Dask cluster)")
+    aud.add_argument("--cohort", required=True,
+                     help="CSV with a 'case' column of case.json paths, relative to the CSV")
+    aud.add_argument("--model", required=True,
+                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
+    aud.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
+    aud.add_argument("--out", required=True,
+                     help="output folder: new, empty, or an earlier audit to resume")
+    aud.add_argument("--workers", type=int, default=None,
+                     help="local worker processes (default: the CPU count; 0: in this process)")
+    aud.add_argument("--scheduler", metavar="ADDRESS",
+                     help="run on this Dask cluster (e.g. tcp://10.0.0.5:8786) instead")
+    _add_explain_options(aud)
+    aud.add_argument("--force", action="store_true",
+                     help="start again over an earlier audit with other settings")
+    aud.add_argument("--quiet", action="store_true", help="no progress bar")
+    aud.set_defaults(run=_cmd_audit)
 
     ph = sub.add_parser("phantom", help="write synthetic CCTA cases with known lesions")
     ph.add_argument("--out", required=True, help="output folder (must be new or empty)")
