@@ -44,15 +44,18 @@ def _cmd_explain(args):
     from .report.files import check_out_dir
 
     progress = progress_printer(args.quiet)
+    labels = None if args.grade_labels is None else _grade_labels(args.grade_labels)
     # Cheap checks first: a refused output folder or a bad case fails before any computing.
     check_out_dir(args.out, force=args.force)
     case = load_case(args.case)
     from .model import load_model
     from .report import explain_case
+    from .report.wording import verdict
 
-    model = load_model(args.model, weights=args.weights)
+    model = load_model(args.model, weights=args.weights, grade_labels=labels)
     explanation = explain_case(model, case, progress=progress, **_explain_options(args))
     html = explanation.write(args.out, force=args.force, progress=progress)
+    print(verdict(explanation.prediction))
     print(f"culprit: segment {explanation.culprit_label}; report: {html}")
     return 0
 
@@ -67,6 +70,16 @@ def _cmd_demo(args):
 
 def _methods(text):
     return tuple(m.strip() for m in text.split(",") if m.strip())
+
+
+def _grade_labels(text):
+    """``--grade-labels``: one label per output column; an empty item is refused (exit 2)."""
+    items = tuple(item.strip() for item in text.split(","))
+    for n, item in enumerate(items, 1):
+        if not item:
+            raise InputError(f"--grade-labels: item {n} of {text!r} is empty; give one label "
+                             "per output column, e.g. --grade-labels 0,1,2,3,4A,4B,5")
+    return items
 
 
 def build_parser():
@@ -90,13 +103,19 @@ def build_parser():
     exp.add_argument("--model", required=True,
                      help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
     exp.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
+    exp.add_argument("--grade-labels", metavar="L0,L1,...",
+                     help="label of each output column, e.g. 0,1,2,3,4A,4B,5; wins over the "
+                          "sidecar file <model>.spec.json (its \"grade_labels\" list) and the "
+                          "module's grade_labels. Without labels, reports name output columns, "
+                          "never a CAD-RADS category")
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
     exp.add_argument("--methods", type=_methods, default=None,
                      help="comma-separated saliency methods (default: the report's defaults)")
     exp.add_argument("--target", default="auto",
                      help="output column index, 'predicted', 'expected', 'auto', or KEY[:INDEX] "
                           "for dict outputs (default auto: the expected CAD-RADS category when "
-                          "the model's grade labels are CAD-RADS categories, else predicted)")
+                          "the model's grade labels are CAD-RADS categories, else predicted: "
+                          "the column with the top score)")
     exp.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
     exp.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
     exp.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")
