@@ -109,3 +109,10 @@ def test_bad_grade_labels_exit_2_one_line(inputs, capsys, labels, words):
     assert code == 2
     assert err.count("\n") == 1 and words in err and "Traceback" not in err
     assert not out.exists()
+
+
+def test_help_names_the_sidecar_and_the_option(capsys):
+    with pytest.raises(SystemExit):
+        main(["explain", "--help"])
+    text = " ".join(capsys.readouterr().out.split())
+    assert "--grade-labels" in text and "<model>.spec.json" in text
