@@ -44,15 +44,18 @@ def _cmd_explain(args):
     from .report.files import check_out_dir
 
     progress = progress_printer(args.quiet)
+    labels = None if args.grade_labels is None else _grade_labels(args.grade_labels)
     # Cheap checks first: a refused output folder or a bad case fails before any computing.
     check_out_dir(args.out, force=args.force)
     case = load_case(args.case)
     from .model import load_model
     from .report import explain_case
+    from .report.wording import verdict
 
-    model = load_model(args.model, weights=args.weights)
+    model = load_model(args.model, weights=args.weights, grade_labels=labels)
     explanation = explain_case(model, case, progress=progress, **_explain_options(args))
     html = explanation.write(args.out, force=args.force, progress=progress)
+    print(verdict(explanation.prediction))
     print(f"culprit: segment {explanation.culprit_label}; report: {html}")
     return 0
 
@@ -68,9 +71,11 @@ def _cmd_demo(args):
 def _cmd_audit(args):
     from .audit import run_audit
 
+    labels = None if args.grade_labels is None else _grade_labels(args.grade_labels)
     result = run_audit(
         args.cohort, args.model, args.out, workers=args.workers, scheduler=args.scheduler,
-        weights=args.weights, force=args.force, quiet=args.quiet, **_explain_options(args))
+        weights=args.weights, grade_labels=labels, force=args.force, quiet=args.quiet,
+        **_explain_options(args))
     c = result.summary["counts"]
     print(f"audited {c['rows']} cases: {c['ok']} explained, {c['failed']} failed; "
           f"page: {result.out_dir / 'index.html'}")
@@ -87,13 +92,24 @@ def _add_explain_options(cmd):
     cmd.add_argument("--target", default="auto",
                      help="output column index, 'predicted', 'expected', 'auto', or KEY[:INDEX] "
                           "for dict outputs (default auto: the expected CAD-RADS category when "
-                          "the model's grade labels are CAD-RADS categories, else predicted)")
+                          "the model's grade labels are CAD-RADS categories, else predicted: "
+                          "the column with the top score)")
     cmd.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
     cmd.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
     cmd.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")
     cmd.add_argument("--baseline-hu", type=float, default=0.0,
                      help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
     cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
+
+
+def _grade_labels(text):
+    """``--grade-labels``: one label per output column; an empty item is refused (exit 2)."""
+    items = tuple(item.strip() for item in text.split(","))
+    for n, item in enumerate(items, 1):
+        if not item:
+            raise InputError(f"--grade-labels: item {n} of {text!r} is empty; give one label "
+                             "per output column, e.g. --grade-labels 0,1,2,3,4A,4B,5")
+    return items
 
 
 def build_parser():
@@ -117,6 +133,11 @@ def build_parser():
     exp.add_argument("--model", required=True,
                      help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
     exp.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
+    exp.add_argument("--grade-labels", metavar="L0,L1,...",
+                     help="label of each output column, e.g. 0,1,2,3,4A,4B,5; wins over the "
+                          "sidecar file <model>.spec.json (its \"grade_labels\" list) and the "
+                          "module's grade_labels. Without labels, reports name output columns, "
+                          "never a CAD-RADS category")
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
     _add_explain_options(exp)
     exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
@@ -130,6 +151,8 @@ def build_parser():
     aud.add_argument("--model", required=True,
                      help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
     aud.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
+    aud.add_argument("--grade-labels", metavar="L0,L1,...",
+                     help="label of each output column, as for explain")
     aud.add_argument("--out", required=True,
                      help="output folder: new, empty, or an earlier audit to resume")
     aud.add_argument("--workers", type=int, default=None,

@@ -9,7 +9,8 @@ patient in it:
 - ``"expected"``: the expected CAD-RADS category, sum over the grade columns of softmax
   probability times category rank (0 for "0" ... 6 for "5");
 - ``"auto"`` (the default of :func:`explain.explain_case` and the command line): ``"expected"``
-  when the model's grade labels name at least two CAD-RADS categories, else ``"predicted"``.
+  when the model's grade labels name at least two CAD-RADS categories, else ``"predicted"``
+  (so a model without grade labels, e.g. a scripted one, is explained at its top column).
   CAD-RADS is an ordered scale; a segment that pushes a patient from 2 towards 4A raises the
   expected category, but it can lower the logit of the predicted column 2, so for a model that
   under-grades, the predicted column names the wrong segment. The expected category also has a

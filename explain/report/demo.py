@@ -16,6 +16,8 @@ import dataclasses
 import sys
 from pathlib import Path
 
+from .wording import verdict
+
 __all__ = ["DEMO_LESIONS", "progress_printer", "run_demo"]
 
 #: The demo's lesion: a 70 % soft plaque in the mid LAD (CAD-RADS 4A).
@@ -83,8 +85,8 @@ def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None):
 def _summary(explanation):
     e = explanation
     c = e.culprit
-    print(f"case {e.case_id}: model grade CAD-RADS {e.prediction['grade']} "
-          f"(reference {getattr(e.case.reference, 'grade', None)})")
+    print(f"case {e.case_id}: {verdict(e.prediction)} "
+          f"Reference grade given with the case: {getattr(e.case.reference, 'grade', None)}.")
     print(f"culprit segment {c.label}, {c.name}: Shapley {c.shapley:.3g}, margin {e.margin:.3g}")
     for method in e.methods:
         peak = c.locations[method].peak

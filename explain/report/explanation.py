@@ -17,6 +17,7 @@ import numpy as np
 from .. import CAUTION, __version__
 from ..errors import InputError, ModelError
 from ..mapping import locate
+from .wording import grade_phrase
 
 __all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW", "SegmentResult", "Explanation", "explain_case"]
 
@@ -106,7 +107,9 @@ class Explanation:
     settings : dict
         Every option used, the seed included.
     prediction : dict
-        ``grade`` (label of the arg-max column), ``scores`` (raw output per column label),
+        ``grade`` (label of the arg-max column; None when the model gives no grade labels, so
+        that no report names a grade the model did not give), ``column`` (its index),
+        ``scores`` (raw output per column label, or per column index without labels),
         ``probabilities`` (softmax of the scores).
     target : dict
         ``requested`` (as given), ``label`` (resolved), ``value`` (the target at this patient),
@@ -161,7 +164,7 @@ class Explanation:
         for method in self.methods:
             peak = c.locations[method].peak
             where.append(f"{method} {'-' if peak is None else f'{peak.arc_mm:.1f}'} mm")
-        return (f"Explanation(case {self.case_id!r}, grade {self.prediction['grade']}, "
+        return (f"Explanation(case {self.case_id!r}, {grade_phrase(self.prediction)}, "
                 f"culprit {c.label} margin {self.margin:.3g}, {len(self.segments)} segments, "
                 f"peak along culprit: {', '.join(where) or 'no maps'})")
 
@@ -245,18 +248,36 @@ def _sampling(model, points, size, pixel_mm):
     return chosen
 
 
-def _prediction(output, grade_labels):
-    import torch
-
+def _graded_scores(output):
+    """The output entry that holds the grade, as a (K,) tensor for the first patient."""
     if isinstance(output, dict):
         key = "grade" if "grade" in output else next(iter(output))
         output = output[key]
-    scores = output.detach().reshape(output.shape[0], -1)[0].double()
-    labels = ([str(g) for g in grade_labels] if grade_labels is not None
-              and len(grade_labels) == scores.numel() else [str(i) for i in range(scores.numel())])
+    return output.detach().reshape(output.shape[0], -1)[0].double()
+
+
+def _check_grade_labels(output, grade_labels, model):
+    """Refuse grade labels whose count is not the number of output columns."""
+    if grade_labels is None:
+        return
+    k = _graded_scores(output).numel()
+    if len(grade_labels) != k:
+        raise ModelError(
+            f"grade labels of model {getattr(model, 'name', '?')!r}: {len(grade_labels)} labels "
+            f"{list(grade_labels)} for {k} output columns; give one label per column "
+            "(--grade-labels, the sidecar <model>.spec.json, or the module's grade_labels)")
+
+
+def _prediction(output, grade_labels):
+    """``grade`` is the top column's label, or None when the model gives no grade labels."""
+    import torch
+
+    scores = _graded_scores(output)
+    columns = [str(i) for i in range(scores.numel())]
+    labels = columns if grade_labels is None else [str(g) for g in grade_labels]
     probs = torch.softmax(scores, dim=0)
     best = int(torch.argmax(scores))
-    return {"grade": labels[best], "column": best,
+    return {"grade": None if grade_labels is None else labels[best], "column": best,
             "scores": {lab: float(s) for lab, s in zip(labels, scores)},
             "probabilities": {lab: float(p) for lab, p in zip(labels, probs)}}
 
@@ -323,6 +344,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         except (RuntimeError, ValueError, TypeError) as exc:
             raise ModelError(f"model {getattr(model, 'name', '?')!r} failed on the case's "
                              f"cross-sections {tuple(x.shape)}: {str(exc).splitlines()[0]}") from None
+    _check_grade_labels(output, grade_labels, model)
     resolved = resolve_target(output, target, grade_labels=grade_labels)
     with torch.no_grad():
         target_value = float(resolved(output)[0])

@@ -19,6 +19,7 @@ from matplotlib.colors import Normalize, TwoSlopeNorm
 from matplotlib.figure import Figure
 
 from ..anatomy import SEGMENT_TABLE
+from .wording import target_phrase, target_unit
 
 __all__ = ["METHOD_UNITS", "FIGURE_DPI", "profile_figure", "culprit_figure",
            "contribution_figure", "tree_figure", "write_figures"]
@@ -53,9 +54,8 @@ def _new_figure(width, height):
 
 
 def _target_unit(explanation):
-    """What one unit of the target is: CAD-RADS categories for the expected category."""
-    label = str(explanation.target["label"])
-    return "CAD-RADS categories" if label.split(":")[-1] == "expected" else "target units"
+    """What one unit of the target is (see :func:`explain.report.wording.target_unit`)."""
+    return target_unit(explanation.target["label"])
 
 
 def _units(method, explanation):
@@ -237,7 +237,7 @@ def contribution_figure(explanation):
         if index == e.culprit_index:
             tick.set_fontweight("bold")
     ax.axvline(0, color="black", lw=0.8)
-    ax.set_xlabel(f"contribution to the target {e.target['label']!s} ({_target_unit(e)})")
+    ax.set_xlabel(f"contribution to {target_phrase(e.target['label'])} ({_target_unit(e)})")
     ax.set_title(f"Segment contributions; culprit {e.culprit.label} (margin {e.margin:.3g})",
                  fontsize=10)
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)

@@ -12,6 +12,8 @@ import html
 import json
 import math
 
+from .wording import target_phrase, verdict
+
 __all__ = ["report_html"]
 
 _STYLE = """
@@ -75,15 +77,6 @@ def _table(header, rows, *, classes=None):
 
 def _td(text, numeric=False):
     return f'<td class="n">{text}</td>' if numeric else f"<td>{text}</td>"
-
-
-def _target_words(label):
-    if isinstance(label, int):
-        return f"output column {_e(label)}"
-    if str(label).split(":")[-1] == "expected":
-        key = str(label).rpartition(":")[0]
-        return "the expected CAD-RADS category" + (f" of output {_e(key)}" if key else "")
-    return f"output {_e(label)}"
 
 
 def _where_rows(report):
@@ -185,8 +178,8 @@ def report_html(report, images):
 <body><main>
 <h1>Case {_e(report['case_id'])}</h1>
 <div class="caution"><b>Caution.</b> {_e(report['cautions'][0])}</div>
-<div class="answer">The model graded this case <b>CAD-RADS {_e(pred['grade'])}</b>.
-The segment that drove the target ({_target_words(target['label'])}, value
+<div class="answer"><b>{_e(verdict(pred))}</b>
+The segment that drove the target ({_e(target_phrase(target['label']))}, value
 {_num(target['value'])}) is
 <b>{_e(culprit['segment_id'])} ({_e(culprit['segment_abbr'])}, {_e(culprit['segment_name'])})</b>,
 with a Shapley value of {_num(culprit['shapley'])} and a margin of {_num(culprit['margin'])}
