@@ -11,6 +11,7 @@ import sys
 
 from . import CAUTION, __version__
 from .errors import CulpritLensError, InputError
+from .interrupt import Terminated, exit_status, signals_as_exceptions
 
 __all__ = ["main", "build_parser"]
 
@@ -179,20 +180,28 @@ def build_parser():
 
 
 def main(argv=None):
-    """Run the command line; returns the exit status."""
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    try:
-        return args.run(args)
-    except CulpritLensError as exc:
-        print(f"culprit-lens: error: {exc}", file=sys.stderr)
-        return 2
-    except (FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError) as exc:
-        print(f"culprit-lens: error: {exc.filename or ''}: {exc.strerror}", file=sys.stderr)
-        return 2
-    except KeyboardInterrupt:
-        print("culprit-lens: interrupted; nothing half-written was kept", file=sys.stderr)
-        return 130
+    """Run the command line; returns the exit status.
+
+    Ctrl-C (SIGINT) and SIGTERM end the run with one line on stderr and status 130 or 143
+    (128 + the signal number); the staging folder is removed, so no output folder is left.
+    """
+    with signals_as_exceptions():
+        try:
+            args = build_parser().parse_args(argv)
+            return args.run(args)
+        except CulpritLensError as exc:
+            print(f"culprit-lens: error: {exc}", file=sys.stderr)
+            return 2
+        except (FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError) as exc:
+            print(f"culprit-lens: error: {exc.filename or ''}: {exc.strerror}", file=sys.stderr)
+            return 2
+        except KeyboardInterrupt as exc:
+            print("culprit-lens: interrupted; nothing half-written was kept", file=sys.stderr)
+            return exit_status(exc)
+        except Terminated as exc:
+            print("culprit-lens: terminated (SIGTERM); nothing half-written was kept",
+                  file=sys.stderr)
+            return exit_status(exc)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -195,27 +195,81 @@ def check_output_dir(out_dir, *, force=False, field="--out"):
     return out_dir
 
 
+def _lock_path(out_dir):
+    return out_dir.with_name(f".{out_dir.name}.lock")
+
+
+@contextlib.contextmanager
+def _output_lock(out_dir, field):
+    """Hold an exclusive lock on ``.<name>.lock`` beside ``out_dir`` while it is being built.
+
+    ``flock`` locks die with their process, so a killed run leaves at most an unlocked, empty
+    file that the next run takes over. Where ``fcntl`` is missing (Windows) there is no lock.
+    """
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - not POSIX
+        yield
+        return
+    path = _lock_path(out_dir)
+    busy = InputError(f"{field}: another culprit-lens run is writing into {out_dir}; wait for "
+                      "it to finish or choose another folder")
+    fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o666 & ~_umask())
+    try:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise busy from None
+        # The holder before us may have removed the file between our open and our lock.
+        try:
+            same = os.stat(path).st_ino == os.fstat(fd).st_ino
+        except FileNotFoundError:
+            same = False
+        if not same:
+            raise busy
+        try:
+            yield
+        finally:
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(path)
+    finally:
+        os.close(fd)
+
+
 @contextlib.contextmanager
 def atomic_output_dir(out_dir, *, force=False, field="--out"):
     """Build an output folder in a temporary folder beside it; move it into place on success.
 
     An existing non-empty ``out_dir`` is refused unless ``force``; with ``force`` it is replaced
-    only once the new content is complete. After an error nothing is left behind.
+    only once the new content is complete. After an error or an interruption (Ctrl-C, SIGTERM
+    under :func:`explain.interrupt.signals_as_exceptions`) nothing is left behind. While the
+    folder is built, ``.<name>.lock`` beside it is locked: a second run into the same folder is
+    refused with :class:`InputError`, and the check for a non-empty folder is repeated under
+    the lock, so two runs can never both fill it.
 
     Yields
     ------
     Path
         The temporary folder to write into.
     """
+    from .interrupt import signals_deferred
+
     out_dir = check_output_dir(out_dir, force=force, field=field)
     out_dir.parent.mkdir(parents=True, exist_ok=True)
-    temp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
-    os.chmod(temp, 0o777 & ~_umask())  # mkdtemp makes it private (0700)
-    try:
-        yield temp
-    except BaseException:
-        shutil.rmtree(temp, ignore_errors=True)
-        raise
+    with _output_lock(out_dir, field):
+        check_output_dir(out_dir, force=force, field=field)
+        temp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.", dir=out_dir.parent))
+        os.chmod(temp, 0o777 & ~_umask())  # mkdtemp makes it private (0700)
+        try:
+            yield temp
+        except BaseException:
+            shutil.rmtree(temp, ignore_errors=True)
+            raise
+        with signals_deferred():
+            _put_in_place(temp, out_dir)
+
+
+def _put_in_place(temp, out_dir):
     old = None
     if out_dir.exists():
         old = out_dir.with_name(f".{out_dir.name}.old-{os.getpid()}")
