@@ -120,10 +120,12 @@ def _prepare(out_dir, state, *, force):
         for p in others:
             shutil.rmtree(p) if p.is_dir() and not p.is_symlink() else p.unlink()
     cases = out_dir / "cases"
-    if cases.is_dir():  # staging folders of a run that was killed
+    if cases.is_dir():  # staging folders and lock files of a run that was killed
         for p in cases.iterdir():
-            if p.name.startswith("."):
+            if p.name.startswith(".") and p.is_dir() and not p.is_symlink():
                 shutil.rmtree(p, ignore_errors=True)
+            elif p.name.startswith("."):
+                p.unlink(missing_ok=True)
     write_text(json.dumps(state, indent=2) + "\n", path)
 
 
