@@ -1,7 +1,7 @@
 """SCCT segment numbering, checked against the SCCT 2014 table.
 
 Source: Leipsic J et al., J Cardiovasc Comput Tomogr 2014;8:342-358 (segments 1-15 after the AHA
-model, Austen WG et al., Circulation 1975), as transcribed in shared/reference-values.md.
+model, Austen WG et al., Circulation 1975).
 """
 
 import pytest

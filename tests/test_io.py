@@ -88,7 +88,7 @@ def test_pydicom_ct_small_reads_in_hu(tmp_path):
     shutil.copy(source, folder / "CT_small.dcm")
     image = read_image(folder)
     ds = pydicom.dcmread(source)
-    # shared/reference-values.md: 128 x 128, pixel spacing 0.661468 mm, intercept -1024, slope 1.
+    # pydicom test file CT_small.dcm, its own header: 128 x 128, pixel spacing 0.661468 mm, intercept -1024, slope 1.
     assert image.GetSize()[:2] == (128, 128)
     np.testing.assert_allclose(image.GetSpacing()[:2], (0.661468, 0.661468), atol=1e-5)
     assert float(ds.RescaleIntercept) == -1024 and float(ds.RescaleSlope) == 1

@@ -1,6 +1,6 @@
 """Attenuation measured in the generated volumes against published CT values.
 
-Sources (see ../../../shared/reference-values.md): Kawaguchi et al., Circ J 2014;78:662-670
+Sources: Kawaguchi et al., Circ J 2014;78:662-670
 (lumen about 350 HU aimed for, 346 +/- 24 HU reached); Monti et al., J Clin Med 2021;10:735
 (epicardial fat about -80 HU); Pohle et al., Atherosclerosis 2007;190:174-180 (non-calcified
 plaque 58 +/- 43 and 121 +/- 34 HU, i.e. about 30-130 HU); calcified plaque > 350 HU (common
