@@ -113,6 +113,36 @@ def _grade_labels(text):
     return items
 
 
+def _add_model_options(cmd):
+    cmd.add_argument("--model", required=True,
+                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
+    cmd.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
+    cmd.add_argument("--grade-labels", metavar="L0,L1,...",
+                     help="label of each output column, e.g. 0,1,2,3,4A,4B,5; wins over the "
+                          "sidecar file <model>.spec.json (its \"grade_labels\" list) and the "
+                          "module's grade_labels. Without labels, reports name output columns, "
+                          "never a CAD-RADS category")
+
+
+def _add_audit_parser(sub):
+    aud = sub.add_parser("audit", help="explain every case of a cohort and rank the misgraded "
+                                       "ones (local processes or a Dask cluster)")
+    aud.add_argument("--cohort", required=True,
+                     help="CSV with a 'case' column of case.json paths, relative to the CSV")
+    _add_model_options(aud)
+    aud.add_argument("--out", required=True,
+                     help="output folder: new, empty, or an earlier audit to resume")
+    aud.add_argument("--workers", type=int, default=None,
+                     help="local worker processes (default: the CPU count; 0: in this process)")
+    aud.add_argument("--scheduler", metavar="ADDRESS",
+                     help="run on this Dask cluster (e.g. tcp://10.0.0.5:8786) instead")
+    _add_explain_options(aud)
+    aud.add_argument("--force", action="store_true",
+                     help="start again over an earlier audit with other settings")
+    aud.add_argument("--quiet", action="store_true", help="no progress bar")
+    aud.set_defaults(run=_cmd_audit)
+
+
 def build_parser():
     parser = argparse.ArgumentParser(
         prog="culprit-lens",
@@ -131,40 +161,14 @@ def build_parser():
 
     exp = sub.add_parser("explain", help="explain one case with a model")
     exp.add_argument("--case", required=True, help="case.json (format culprit-lens-case/1)")
-    exp.add_argument("--model", required=True,
-                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
-    exp.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
-    exp.add_argument("--grade-labels", metavar="L0,L1,...",
-                     help="label of each output column, e.g. 0,1,2,3,4A,4B,5; wins over the "
-                          "sidecar file <model>.spec.json (its \"grade_labels\" list) and the "
-                          "module's grade_labels. Without labels, reports name output columns, "
-                          "never a CAD-RADS category")
+    _add_model_options(exp)
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
     _add_explain_options(exp)
     exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     exp.add_argument("--quiet", action="store_true", help="no progress messages")
     exp.set_defaults(run=_cmd_explain)
 
-    aud = sub.add_parser("audit", help="explain every case of a cohort and rank the misgraded "
-                                       "ones (local processes or a Dask cluster)")
-    aud.add_argument("--cohort", required=True,
-                     help="CSV with a 'case' column of case.json paths, relative to the CSV")
-    aud.add_argument("--model", required=True,
-                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
-    aud.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
-    aud.add_argument("--grade-labels", metavar="L0,L1,...",
-                     help="label of each output column, as for explain")
-    aud.add_argument("--out", required=True,
-                     help="output folder: new, empty, or an earlier audit to resume")
-    aud.add_argument("--workers", type=int, default=None,
-                     help="local worker processes (default: the CPU count; 0: in this process)")
-    aud.add_argument("--scheduler", metavar="ADDRESS",
-                     help="run on this Dask cluster (e.g. tcp://10.0.0.5:8786) instead")
-    _add_explain_options(aud)
-    aud.add_argument("--force", action="store_true",
-                     help="start again over an earlier audit with other settings")
-    aud.add_argument("--quiet", action="store_true", help="no progress bar")
-    aud.set_defaults(run=_cmd_audit)
+    _add_audit_parser(sub)
 
     ph = sub.add_parser("phantom", help="write synthetic CCTA cases with known lesions")
     ph.add_argument("--out", required=True, help="output folder (must be new or empty)")
