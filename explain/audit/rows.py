@@ -11,6 +11,7 @@ import csv
 import io
 import math
 
+from ..attribution.trace import culprit_doubts
 from ..grading import CATEGORIES
 
 __all__ = ["base_columns", "columns", "report_row", "failed_row", "grade_error", "rows_csv",
@@ -127,8 +128,17 @@ def report_row(report, *, case_id, case, seconds, methods):
         else:
             row[f"{m}_pointing_hit"], row[f"{m}_peak_error_mm"] = along_arc_localisation(report, m)
         row[f"{m}_relevance_mass"] = (local.get("relevance_mass") or {}).get(m)
-    row["flags"] = ";".join(quality.get("flags") or ())
+    row["flags"] = ";".join(quality.get("flags") if quality else _doubts(report))
     return row
+
+
+def _doubts(report):
+    """Without a quality object: the culprit's doubts by the shared rule (``culprit_doubts``)."""
+    target = report.get("target") or {}
+    if target.get("value_all") is None or target.get("value_none") is None:
+        return ()
+    return culprit_doubts([s["shapley"] for s in report.get("segments", ())],
+                          report["culprit"]["margin"], target["value_all"], target["value_none"])
 
 
 def failed_row(*, case_id, case, seconds, error, methods):

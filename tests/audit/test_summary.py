@@ -85,3 +85,16 @@ def test_along_arc_localisation_worked_by_hand():
     row = report_row(rep, case_id="c", case="c/case.json", seconds=1.0, methods=["g", "o"])
     assert row["culprit_hit"] is True and row["o_peak_error_mm"] == 1.0
     assert row["grade_error"] == 0
+
+
+def test_flags_without_a_quality_object_follow_the_shared_doubts_rule():
+    """The low-margin rule of explain.attribution.trace.culprit_doubts (our own rule: below 10 %
+    of |v(all) - v(none)|, common practice, no source) applied to the report's numbers."""
+    from explain.audit.rows import report_row
+    rep = {"culprit": {"segment_id": 1, "margin": 0.05, "where": {}},
+           "target": {"value_all": 1.0, "value_none": 0.05},
+           "segments": [{"id": 1, "shapley": 0.5}, {"id": 2, "shapley": 0.45}],
+           "prediction": {"grade": None}, "model": {"grade_labels": None}}
+    assert report_row(rep, case_id="c", case="c", seconds=0.0, methods=[])["flags"] == "low_margin"
+    rep["culprit"]["margin"] = 0.5
+    assert report_row(rep, case_id="c", case="c", seconds=0.0, methods=[])["flags"] == ""
