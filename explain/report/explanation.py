@@ -282,6 +282,50 @@ def _prediction(output, grade_labels):
             "probabilities": {lab: float(p) for lab, p in zip(labels, probs)}}
 
 
+def _check_arguments(model, methods, seed, baseline_hu):
+    """explain_case's cheap checks, before any work; returns (methods, baseline_hu as float)."""
+    if not all(callable(getattr(model, name, None)) for name in ("encode", "head", "forward")):
+        raise InputError(
+            f"model: expected a wrapped model (explain.load_model or explain.wrap_model), got "
+            f"{type(model).__name__}; wrap a torch module with explain.wrap_model(module)")
+    methods = _check_methods(methods)
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
+        raise InputError(f"seed: expected an integer, got {seed!r}")
+    try:
+        baseline_hu = float(baseline_hu)
+    except (TypeError, ValueError):
+        raise InputError(f"baseline_hu: expected a number of HU, got {baseline_hu!r}") from None
+    if not np.isfinite(baseline_hu):
+        raise InputError(f"baseline_hu: expected a finite number of HU, got {baseline_hu}")
+    return methods, baseline_hu
+
+
+def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, seed, progress,
+                   notes):
+    """One map per method, (S, N, H, W) float32, and the options each used; notes appended."""
+    import torch
+
+    from ..attribution import attribute
+
+    maps, method_options = {}, {}
+    for n, method in enumerate(methods, 1):
+        _say(progress, f"saliency {n}/{len(methods)}: {method}")
+        options = method_settings(method, stack_shape, seed=seed)
+        method_options[method] = options
+        torch.manual_seed(seed)
+        if method == "integrated_gradients":
+            result, delta = attribute(model, x, method=method, target=resolved,
+                                      baseline_hu=baseline_hu, return_convergence_delta=True,
+                                      **options)
+            notes.append(f"integrated_gradients: completeness gap (convergence delta) "
+                         f"{float(delta[0]):.3g} target units")
+        else:
+            result = attribute(model, x, method=method, target=resolved,
+                               baseline_hu=baseline_hu, **options)
+        maps[method] = result.detach().cpu().numpy()[0].astype(np.float32)
+    return maps, method_options
+
+
 def explain_case(model, case, *, methods=None, target="auto", points=None, size=None,
                  pixel_mm=None, baseline_hu=0.0, seed=0, progress=None):
     """Explain one case with a wrapped model.
@@ -313,23 +357,11 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     """
     import torch
 
-    from ..attribution import attribute, trace_segments
+    from ..attribution import trace_segments
     from ..geometry import sample_case
     from ..model.targets import resolve_target
 
-    if not all(callable(getattr(model, name, None)) for name in ("encode", "head", "forward")):
-        raise InputError(
-            f"model: expected a wrapped model (explain.load_model or explain.wrap_model), got "
-            f"{type(model).__name__}; wrap a torch module with explain.wrap_model(module)")
-    methods = _check_methods(methods)
-    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
-        raise InputError(f"seed: expected an integer, got {seed!r}")
-    try:
-        baseline_hu = float(baseline_hu)
-    except (TypeError, ValueError):
-        raise InputError(f"baseline_hu: expected a number of HU, got {baseline_hu!r}") from None
-    if not np.isfinite(baseline_hu):
-        raise InputError(f"baseline_hu: expected a finite number of HU, got {baseline_hu}")
+    methods, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
     sampling = _sampling(model, points, size, pixel_mm)
 
     _say(progress, f"sampling cross-sections of {len(case.segments)} segments "
@@ -352,22 +384,10 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     _say(progress, "tracing segments (winning channels, leave-one-out, Shapley)")
     trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed))
 
-    maps, method_options, notes = {}, {}, list(case.notes)
-    for n, method in enumerate(methods, 1):
-        _say(progress, f"saliency {n}/{len(methods)}: {method}")
-        options = method_settings(method, sections.values.shape[1:], seed=int(seed))
-        method_options[method] = options
-        torch.manual_seed(int(seed))
-        if method == "integrated_gradients":
-            result, delta = attribute(model, x, method=method, target=resolved,
-                                      baseline_hu=baseline_hu, return_convergence_delta=True,
-                                      **options)
-            notes.append(f"integrated_gradients: completeness gap (convergence delta) "
-                         f"{float(delta[0]):.3g} target units")
-        else:
-            result = attribute(model, x, method=method, target=resolved,
-                               baseline_hu=baseline_hu, **options)
-        maps[method] = result.detach().cpu().numpy()[0].astype(np.float32)
+    notes = list(case.notes)
+    maps, method_options = _saliency_maps(model, x, methods, resolved, sections.values.shape[1:],
+                                          baseline_hu=baseline_hu, seed=int(seed),
+                                          progress=progress, notes=notes)
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
