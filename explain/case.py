@@ -262,12 +262,16 @@ def _load_reference(path, data, image, segments):
             raise InputError(f"{where}.stenosis_percent[{key}]: expected a percent 0-100, got {value!r}")
         stenosis[segment_id] = float(value)
     lesions = []
-    for n, item in enumerate(ref.get("lesions", []) or []):
+    raw_lesions = ref.get("lesions") or []
+    if not isinstance(raw_lesions, list):
+        raise InputError(f"{where}.lesions: expected a list of {{\"segment\": id, \"start_mm\": a, "
+                         f"\"end_mm\": b}}, got {type(raw_lesions).__name__}")
+    for n, item in enumerate(raw_lesions):
         field_name = f"{where}.lesions[{n}]"
         try:
             segment_id = check_segment_id(item["segment"], field=f"{field_name}.segment")
             start, end = float(item["start_mm"]), float(item["end_mm"])
-        except (KeyError, TypeError, ValueError):
+        except (KeyError, TypeError, ValueError, OverflowError):
             raise InputError(f"{field_name}: expected {{\"segment\": id, \"start_mm\": a, "
                              "\"end_mm\": b}") from None
         if segment_id not in by_id:
