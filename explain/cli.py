@@ -183,6 +183,11 @@ def build_parser():
     return parser
 
 
+def _one_line(exc):
+    """The message on one line, whatever a library below us put into it."""
+    return " ".join(line.strip() for line in str(exc).splitlines() if line.strip())
+
+
 def main(argv=None):
     """Run the command line; returns the exit status.
 
@@ -194,7 +199,7 @@ def main(argv=None):
             args = build_parser().parse_args(argv)
             return args.run(args)
         except CulpritLensError as exc:
-            print(f"culprit-lens: error: {exc}", file=sys.stderr)
+            print(f"culprit-lens: error: {_one_line(exc)}", file=sys.stderr)
             return 2
         except (FileNotFoundError, PermissionError, IsADirectoryError, NotADirectoryError) as exc:
             print(f"culprit-lens: error: {exc.filename or ''}: {exc.strerror}", file=sys.stderr)

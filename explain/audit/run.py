@@ -14,7 +14,6 @@ A rerun over the same ``DIR`` skips every case whose row says ``ok``; failed cas
 from __future__ import annotations
 
 import contextlib
-import fcntl
 import json
 import shutil
 import sys
@@ -23,7 +22,7 @@ from pathlib import Path
 
 from .. import CAUTION, __version__
 from ..errors import InputError
-from ..io import write_text
+from ..io import _output_lock, write_text
 from . import rows as rowmod
 from .cohort import read_cohort
 from .page import audit_html
@@ -83,18 +82,11 @@ def _settings(options, methods):
 
 @contextlib.contextmanager
 def _locked(out_dir):
-    out_dir.mkdir(parents=True, exist_ok=True)
-    handle = (out_dir / ".audit.lock").open("w")
-    try:
-        fcntl.flock(handle, fcntl.LOCK_EX | fcntl.LOCK_NB)
-    except OSError:
-        handle.close()
-        raise InputError(f"--out {out_dir}: another audit is writing into this folder; wait for "
-                         "it or choose another folder") from None
-    try:
+    """The lock explain uses: ``.<name>.lock`` beside the folder, removed when released, so a
+    refused or finished audit leaves nothing of its own in ``out_dir``."""
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    with _output_lock(out_dir, "--out"):
         yield
-    finally:
-        handle.close()
 
 
 def _prepare(out_dir, state, *, force):
@@ -106,7 +98,8 @@ def _prepare(out_dir, state, *, force):
             old = json.loads(path.read_text(encoding="utf-8"))
         except ValueError:
             old = None
-    others = [p for p in out_dir.iterdir() if p.name != ".audit.lock"]
+    # ``.audit.lock`` inside the folder: what runs of earlier versions left
+    others = [p for p in out_dir.iterdir() if p.name != ".audit.lock"] if out_dir.is_dir() else []
     if old is None and others and not force:
         raise InputError(f"--out {out_dir}: exists, is not empty and holds no audit; choose a new "
                          "folder or pass --force to replace it")
@@ -126,6 +119,7 @@ def _prepare(out_dir, state, *, force):
                 shutil.rmtree(p, ignore_errors=True)
             elif p.name.startswith("."):
                 p.unlink(missing_ok=True)
+    out_dir.mkdir(parents=True, exist_ok=True)
     write_text(json.dumps(state, indent=2) + "\n", path)
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import importlib.util
+import re
 import sys
 from pathlib import Path
 
@@ -15,6 +16,17 @@ from .wrap import wrap_model
 __all__ = ["load_model", "load_weights"]
 
 
+def _reason(exc, *, limit=300):
+    """One line saying why torch refused: the unpickler's own reason where torch gives one."""
+    text = str(exc)
+    found = re.search(r"WeightsUnpickler error:\s*(.+?)(?:\n\n|$)", text, re.S)
+    if found:
+        text = found.group(1).split(" Please use ")[0]
+    text = re.sub(r"\x1b\[[0-9;]*m", "", text)
+    text = "; ".join(" ".join(line.split()) for line in text.splitlines() if line.strip())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def load_weights(module, weights):
     """Load a state_dict file into ``module`` with ``torch.load(..., weights_only=True)``."""
     path = Path(weights)
@@ -24,7 +36,7 @@ def load_weights(module, weights):
         state = torch.load(path, map_location="cpu", weights_only=True)
     except Exception as exc:  # noqa: BLE001 - any unpickling failure is the user's file
         raise ModelError(
-            f"weights {path}: cannot be read as a plain state_dict ({exc}); save it with "
+            f"weights {path}: cannot be read as a plain state_dict ({_reason(exc)}); save it with "
             "torch.save(model.state_dict(), path)"
         ) from None
     if isinstance(state, dict) and "state_dict" in state and isinstance(state["state_dict"], dict):
@@ -32,7 +44,7 @@ def load_weights(module, weights):
     try:
         module.load_state_dict(state)
     except (RuntimeError, TypeError, AttributeError) as exc:
-        raise ModelError(f"weights {path}: do not fit the model ({exc})") from None
+        raise ModelError(f"weights {path}: do not fit the model ({_reason(exc)})") from None
     return module
 
 
