@@ -13,7 +13,7 @@ from dataclasses import asdict, dataclass, field
 from ..attribution.trace import LOW_MARGIN_FRACTION
 from ..errors import InputError
 
-__all__ = ["FLAG_THRESHOLDS", "FLAG_NAMES", "QualitySettings", "check_settings"]
+__all__ = ["FLAG_THRESHOLDS", "FLAG_NAMES", "QualitySettings", "check_settings", "quality_option"]
 
 #: When each flag is raised (fractions of the culprit's positive attribution, or of
 #: ``|v(all) - v(none)|`` for ``low_margin``). Our own settings, no source:
@@ -133,3 +133,20 @@ def check_settings(**settings):
         section_fraction=fraction,
         flag_thresholds=_thresholds(settings.get("flag_thresholds")),
     )
+
+
+def quality_option(quality):
+    """``explain_case``'s ``quality``: None (skip) for False, else the settings dict, checked.
+
+    Examples
+    --------
+    >>> quality_option(False) is None, quality_option(True)
+    (True, {})
+    """
+    if quality is False or quality is None:
+        return None
+    settings = {} if quality is True else quality
+    if not isinstance(settings, dict):
+        raise InputError(f"quality: expected True, False or a dict of settings, got {quality!r}")
+    check_settings(**settings)
+    return dict(settings)
