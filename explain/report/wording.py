@@ -13,7 +13,7 @@ from __future__ import annotations
 from ..grading import CATEGORIES
 
 __all__ = ["grade_phrase", "verdict", "target_phrase", "target_unit", "culprit_statement",
-           "FLAG_WORDS", "flag_sentence"]
+           "FLAG_WORDS", "flag_sentence", "culprit_summary"]
 
 
 def _is_category(label):
@@ -160,3 +160,15 @@ def flag_sentence(flag, settings, methods=()):
     values = {**settings, "low_margin": settings.get("flag_thresholds", {}).get("low_margin", 0.1),
               "methods": ", ".join(methods) or "at least one method"}
     return FLAG_WORDS[flag].format(**values)
+
+
+def culprit_summary(explanation):
+    """The terminal's culprit line, inconclusive in plain words when the culprit is in doubt."""
+    from .jsonout import doubts_of, low_margin_fraction
+
+    e = explanation
+    line = culprit_statement(e.culprit_label, doubts_of(e), low_margin=low_margin_fraction(e))
+    quality = getattr(e, "quality", None)
+    if quality is not None:
+        line += f" Quality flags: {', '.join(quality.flags) or 'none'}."
+    return line
