@@ -107,14 +107,17 @@ def _add_explain_options(cmd):
     cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
 
 
-def _flag_threshold(text):
-    """``--flag-threshold NAME=VALUE``: one flag's threshold (the name is checked later)."""
-    name, sep, value = text.partition("=")
-    try:
-        return name.strip(), float(value)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"expected NAME=VALUE with a number, e.g. on_border=0.5, got {text!r}") from None
+def _flag_thresholds(items):
+    """``--flag-threshold NAME=VALUE`` items as a dict (names are checked by check_settings)."""
+    out = {}
+    for text in items:
+        name, _, value = text.partition("=")
+        try:
+            out[name.strip()] = float(value)
+        except ValueError:
+            raise InputError(f"--flag-threshold: expected NAME=VALUE with a number, e.g. "
+                             f"on_border=0.5, got {text!r}") from None
+    return out
 
 
 def _add_quality_options(cmd):
@@ -133,7 +136,7 @@ def _add_quality_options(cmd):
     cmd.add_argument("--calcium-hu", type=float, default=d.calcium_hu,
                      help=f"pixels above this count as bright calcium, HU (default {d.calcium_hu:g}; "
                           "our own setting, above the enhanced lumen: change it for your protocol)")
-    cmd.add_argument("--flag-threshold", type=_flag_threshold, action="append", default=[],
+    cmd.add_argument("--flag-threshold", action="append", default=[],
                      metavar="NAME=VALUE",
                      help="threshold of one flag (repeatable); flags and defaults: "
                           + ", ".join(f"{k}={v:g}" for k, v in FLAG_THRESHOLDS.items()))
@@ -148,7 +151,7 @@ def _quality_option(args):
     settings = {"tolerance_mm": args.tolerance_mm, "wall_margin_mm": args.wall_margin_mm,
                 "calcium_hu": args.calcium_hu}
     if args.flag_threshold:
-        settings["flag_thresholds"] = dict(args.flag_threshold)
+        settings["flag_thresholds"] = _flag_thresholds(args.flag_threshold)
     check_settings(**settings)
     return settings
 

@@ -67,14 +67,17 @@ def _lesion_regions(explanation, case, reference):
     if reference.lesion_mask is not None:
         for section in e.sections.sections:
             regions.append(mask_region(reference.lesion_mask, section.points_mm))
-        return regions, "lesion_mask"
+        return regions, "lesion_mask", None
+    radius_from = set()
     for segment_id, section in zip(e.sections.segment_ids, e.sections.sections):
         extents = [(les.start_mm, les.end_mm) for les in reference.lesions
                    if les.segment == segment_id]
         radius, given = radius_per_section(by_id[segment_id], section.arc_mm)
+        if extents:
+            radius_from.add("centerline radius" if given else "default 1.5 mm")
         regions.append(lesion_arc_region(section.shape, section.pixel_mm, section.arc_mm,
                                          radius, extents))
-    return regions, "lesion_extent_disc"
+    return regions, "lesion_extent_disc", " and ".join(sorted(radius_from)) or None
 
 
 def localisation(explanation, case, *, tolerance_mm=3.0):
@@ -102,7 +105,8 @@ def localisation(explanation, case, *, tolerance_mm=3.0):
         stacks against the lesion region; None with a reason in ``reasons``), and ``region``:
         ``"lesion_mask"`` (the mask sampled onto the pixels, nearest neighbour) or
         ``"lesion_extent_disc"`` (lesion extents crossed with a disc of the lumen radius, or
-        1.5 mm where the case gives none).
+        1.5 mm where the case gives none), with ``region_radius`` saying which
+        (``"centerline radius"``, ``"default 1.5 mm"``; None with a mask).
     """
     from .settings import check_settings
 
@@ -114,11 +118,12 @@ def localisation(explanation, case, *, tolerance_mm=3.0):
     culprits = reference_culprits(reference, e.sections.segment_ids)
     lesions = [les for les in reference.lesions if les.segment == e.culprit.id]
     distance = None if reference.lesion_mask is None else _mask_distance_mm(reference.lesion_mask)
-    regions, region_kind = _lesion_regions(e, case, reference)
+    regions, region_kind, radius_from = _lesion_regions(e, case, reference)
     region = np.stack(regions)
     out = {"culprit_hit": (e.culprit.id in culprits) if culprits else None,
            "reference_culprits": list(culprits), "tolerance_mm": tolerance_mm,
-           "region": region_kind, "region_pixels": int(region.sum()),
+           "region": region_kind, "region_radius": radius_from,
+           "region_pixels": int(region.sum()),
            "pointing_hit": {}, "pointing_hit_mask": {}, "peak_error_mm": {},
            "relevance_mass": {}, "relevance_rank": {}, "reasons": {}}
     for m in e.methods:

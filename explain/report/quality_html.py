@@ -33,7 +33,8 @@ def _localisation(local):
     if local is None:
         return "<p>The case has no reference, so nothing is compared with a known lesion.</p>"
     region = ("the lesion mask sampled onto the cross-sections" if local["region"] == "lesion_mask"
-              else "the lesions' arc extents crossed with a disc of the lumen radius")
+              else "the lesions' arc extents crossed with a disc of the lumen radius "
+              f"({local.get('region_radius') or 'no lesion on the segments'})")
     hit = {True: "is", False: "is not", None: "cannot be compared with"}[local["culprit_hit"]]
     rows = [[_td(_e(m)), _td(_yes_no(local["pointing_hit"][m])),
              _td(_yes_no(local["pointing_hit_mask"][m])),

@@ -50,7 +50,7 @@ def test_pointing_along_the_arc_with_tolerance(case, explanation):
 
 def test_region_without_mask_is_the_arc_extent_times_the_lumen_disc(case, explanation):
     out = localisation(explanation, case)
-    assert out["region"] == "lesion_extent_disc"
+    assert out["region"] == "lesion_extent_disc" and out["region_radius"] == "centerline radius"
     # count directly: cross-sections of segment 7 with arc in [6, 10], pixels within 1.4 mm
     s = explanation.sections.segment_ids.index(7)
     cs = explanation.sections.sections[s]

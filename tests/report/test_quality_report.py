@@ -122,6 +122,7 @@ def test_no_positive_segment_is_said_in_plain_words(synth, tmp_path):
     (["--tolerance-mm", "-1"], "tolerance_mm"),
     (["--flag-threshold", "on_bone=0.2"], "on_bone"),
     (["--wall-margin-mm", "-2"], "wall_margin_mm"),
+    (["--flag-threshold", "on_border"], "NAME=VALUE"),
 ])
 def test_bad_quality_options_are_one_line_exit_2(tmp_path, capsys, option, words):
     out = tmp_path / "out"
