@@ -98,3 +98,15 @@ def test_assessment_without_a_model_has_no_faithfulness(case, explanation):
     assert set(d["localisation"]) >= {"culprit_hit", "pointing_hit", "peak_error_mm",
                                       "relevance_mass"}
     assert d["mass"]["regions"] == ["inside_vessel", "border", "calcium", "segment_end"]
+
+
+def test_every_flag_has_words_and_is_documented():
+    from pathlib import Path
+
+    from explain.quality import FLAG_ORDER, FLAG_THRESHOLDS
+    from explain.report.wording import FLAG_WORDS
+
+    doc = (Path(__file__).parents[2] / "docs" / "report-format.md").read_text()
+    assert set(FLAG_WORDS) == set(FLAG_ORDER) >= set(FLAG_THRESHOLDS)
+    for flag in FLAG_ORDER:
+        assert f"| `{flag}` |" in doc
