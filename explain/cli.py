@@ -46,18 +46,22 @@ def _cmd_explain(args):
 
     progress = progress_printer(args.quiet)
     labels = None if args.grade_labels is None else _grade_labels(args.grade_labels)
-    # Cheap checks first: a refused output folder or a bad case fails before any computing.
+    # Cheap checks first: a refused output folder, bad options or a bad case fail before any
+    # computing.
     check_out_dir(args.out, force=args.force)
+    quality = _quality_option(args)
     case = load_case(args.case)
     from .model import load_model
     from .report import explain_case
-    from .report.wording import verdict
+    from .report.wording import culprit_summary, verdict
 
     model = load_model(args.model, weights=args.weights, grade_labels=labels)
-    explanation = explain_case(model, case, progress=progress, **_explain_options(args))
+    explanation = explain_case(model, case, progress=progress, quality=quality,
+                               **_explain_options(args))
     html = explanation.write(args.out, force=args.force, progress=progress)
     print(verdict(explanation.prediction))
-    print(f"culprit: segment {explanation.culprit_label}; report: {html}")
+    print(culprit_summary(explanation))
+    print(f"report: {html}")
     return 0
 
 
@@ -101,6 +105,55 @@ def _add_explain_options(cmd):
     cmd.add_argument("--baseline-hu", type=float, default=0.0,
                      help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
     cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
+
+
+def _flag_thresholds(items):
+    """``--flag-threshold NAME=VALUE`` items as a dict (names are checked by check_settings)."""
+    out = {}
+    for text in items:
+        name, _, value = text.partition("=")
+        try:
+            out[name.strip()] = float(value)
+        except ValueError:
+            raise InputError(f"--flag-threshold: expected NAME=VALUE with a number, e.g. "
+                             f"on_border=0.5, got {text!r}") from None
+    return out
+
+
+def _add_quality_options(cmd):
+    """How far to trust the explanation: on by default, its settings, or --no-quality."""
+    from .quality import FLAG_THRESHOLDS, QualitySettings
+
+    d = QualitySettings()
+    cmd.add_argument("--no-quality", action="store_true",
+                     help="skip the quality assessment (localisation, mass shares, flags, "
+                          "faithfulness curves)")
+    cmd.add_argument("--tolerance-mm", type=float, default=d.tolerance_mm,
+                     help=f"pointing tolerance against reference lesions, mm (default {d.tolerance_mm:g})")
+    cmd.add_argument("--wall-margin-mm", type=float, default=d.wall_margin_mm,
+                     help="added to the lumen radius for 'inside the vessel', mm "
+                          f"(default {d.wall_margin_mm:g})")
+    cmd.add_argument("--calcium-hu", type=float, default=d.calcium_hu,
+                     help=f"pixels above this count as bright calcium, HU (default {d.calcium_hu:g}; "
+                          "our own setting, above the enhanced lumen: change it for your protocol)")
+    cmd.add_argument("--flag-threshold", action="append", default=[],
+                     metavar="NAME=VALUE",
+                     help="threshold of one flag (repeatable); flags and defaults: "
+                          + ", ".join(f"{k}={v:g}" for k, v in FLAG_THRESHOLDS.items()))
+
+
+def _quality_option(args):
+    """explain_case's ``quality`` from the command line, checked (InputError: exit 2)."""
+    from .quality import check_settings
+
+    if args.no_quality:
+        return False
+    settings = {"tolerance_mm": args.tolerance_mm, "wall_margin_mm": args.wall_margin_mm,
+                "calcium_hu": args.calcium_hu}
+    if args.flag_threshold:
+        settings["flag_thresholds"] = _flag_thresholds(args.flag_threshold)
+    check_settings(**settings)
+    return settings
 
 
 def _grade_labels(text):
@@ -164,6 +217,7 @@ def build_parser():
     _add_model_options(exp)
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
     _add_explain_options(exp)
+    _add_quality_options(exp)
     exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     exp.add_argument("--quiet", action="store_true", help="no progress messages")
     exp.set_defaults(run=_cmd_explain)

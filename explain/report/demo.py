@@ -16,7 +16,7 @@ import dataclasses
 import sys
 from pathlib import Path
 
-from .wording import verdict
+from .wording import culprit_summary, verdict
 
 __all__ = ["DEMO_LESIONS", "progress_printer", "run_demo"]
 
@@ -88,6 +88,7 @@ def _summary(explanation):
     print(f"case {e.case_id}: {verdict(e.prediction)} "
           f"Reference grade given with the case: {getattr(e.case.reference, 'grade', None)}.")
     print(f"culprit segment {c.label}, {c.name}: Shapley {c.shapley:.3g}, margin {e.margin:.3g}")
+    print(culprit_summary(e))
     for method in e.methods:
         peak = c.locations[method].peak
         where = "no attribution to locate" if peak is None else (

@@ -9,7 +9,7 @@ files (report.json, segments.csv, attributions.npz, overlays, figures, report.ht
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -17,6 +17,7 @@ import numpy as np
 from .. import CAUTION, __version__
 from ..errors import InputError, ModelError
 from ..mapping import locate
+from ..quality.settings import quality_option
 from .wording import grade_phrase
 
 __all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW", "SegmentResult", "Explanation", "explain_case"]
@@ -125,6 +126,9 @@ class Explanation:
         Each method's attribution on the cross-sections.
     cautions : tuple of str
     notes : tuple of str
+    quality : explain.quality.Assessment or None
+        How far to trust this explanation (:func:`explain.quality.assess`); None when
+        ``explain_case(..., quality=False)``.
     """
 
     case: object = field(repr=False)
@@ -139,6 +143,7 @@ class Explanation:
     maps: dict = field(default_factory=dict, repr=False)
     cautions: tuple = CAUTIONS
     notes: tuple = ()
+    quality: object = field(default=None, repr=False)
 
     @property
     def case_id(self):
@@ -327,7 +332,7 @@ def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, see
 
 
 def explain_case(model, case, *, methods=None, target="auto", points=None, size=None,
-                 pixel_mm=None, baseline_hu=0.0, seed=0, progress=None):
+                 pixel_mm=None, baseline_hu=0.0, seed=0, progress=None, quality=True):
     """Explain one case with a wrapped model.
 
     Parameters
@@ -350,6 +355,9 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         Seeds torch before each sampled step (SmoothGrad noise, sampled Shapley values).
     progress : callable(str), optional
         Called with a short message before each long step.
+    quality : bool or dict
+        Assess the explanation (:func:`explain.quality.assess`: localisation, mass shares,
+        flags, faithfulness curves); a dict gives its settings. False skips it.
 
     Returns
     -------
@@ -362,6 +370,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     from ..model.targets import resolve_target
 
     methods, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
+    quality_settings = quality_option(quality)
     sampling = _sampling(model, points, size, pixel_mm)
 
     _say(progress, f"sampling cross-sections of {len(case.segments)} segments "
@@ -401,7 +410,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         "culprit_rule": "largest Shapley value over segments",
         "library_version": __version__,
     }
-    return Explanation(
+    explanation = Explanation(
         case=case, sections=sections,
         model={"name": getattr(model, "name", None),
                "weights_hash": getattr(model, "weights_hash", None),
@@ -412,6 +421,13 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         segments=segments, culprit_index=int(trace.culprit), margin=float(trace.margin),
         maps=maps, notes=tuple(notes),
     )
+    if quality_settings is None:
+        return explanation
+    from ..quality import assess
+
+    _say(progress, "assessing the explanation (localisation, mass shares, faithfulness)")
+    return replace(explanation, quality=assess(explanation, case, model=model, target=resolved,
+                                               **quality_settings))
 
 
 def _segment_results(case, sections, trace, maps):

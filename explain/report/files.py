@@ -53,6 +53,20 @@ def write_overlays(explanation, folder):
     return names
 
 
+def _quality_figures(explanation, folder):
+    """figures/faithfulness.png when the explanation was assessed with its model."""
+    from .figures import FIGURE_DPI
+    from .quality_figures import FAITHFULNESS_FIGURE, faithfulness_figure
+    from .wording import target_unit
+
+    quality = getattr(explanation, "quality", None)
+    if quality is None or quality.faithfulness is None:
+        return []
+    fig = faithfulness_figure(quality.faithfulness, target_unit(explanation.target["label"]))
+    fig.savefig(folder / FAITHFULNESS_FIGURE, dpi=FIGURE_DPI)
+    return [f"figures/{FAITHFULNESS_FIGURE}"]
+
+
 def write_into(explanation, folder, *, progress=None):
     """Write report.json, segments.csv, attributions.npz, overlays, figures and report.html.
 
@@ -67,6 +81,7 @@ def write_into(explanation, folder, *, progress=None):
     write_attributions(explanation, folder / "attributions.npz")
     _say(progress, "drawing figures")
     figures = write_figures(explanation, folder / "figures")
+    figures += _quality_figures(explanation, folder / "figures")
     report = explanation_dict(explanation, figures=figures)
     write_text(dumps(report), folder / "report.json")
     write_text(segments_csv(explanation), folder / "segments.csv")

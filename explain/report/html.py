@@ -8,10 +8,11 @@ paths, model name, settings) is escaped with :func:`html.escape`.
 from __future__ import annotations
 
 import base64
-import html
 import json
-import math
 
+from .html_parts import e as _e, num as _num, table as _table, td as _td, vec as _vec
+from .quality_html import quality_section
+from .quality_figures import FAITHFULNESS_FIGURE
 from .wording import target_phrase, verdict
 
 __all__ = ["report_html"]
@@ -20,7 +21,7 @@ _STYLE = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Helvetica,Arial,sans-serif;margin:0;
 background:#f7f7f5;color:#1d1d1d;line-height:1.45}
 main{max-width:1100px;margin:0 auto;padding:1.2em 1.6em 3em}
-h1{font-size:1.5em;margin:.4em 0 .2em}h2{font-size:1.15em;margin:1.6em 0 .5em;
+h1{font-size:1.5em;margin:.4em 0 .2em}h3{font-size:1em;margin:1.1em 0 .3em}h2{font-size:1.15em;margin:1.6em 0 .5em;
 border-bottom:1px solid #cfcfcf;padding-bottom:.2em}
 .caution{background:#fff4d6;border-left:5px solid #d89a00;padding:.6em .9em;margin:.8em 0}
 .answer{background:#fff;border:1px solid #d9d9d9;padding:.8em 1em;font-size:1.05em}
@@ -48,35 +49,6 @@ _CAPTIONS = {
                 "per cross-section along every vessel (one scale "
                 "for all segments); reference lesions shaded when the case has them.",
 }
-
-
-def _e(value):
-    return html.escape(str(value), quote=True)
-
-
-def _num(value, fmt=".4g"):
-    if value is None or (isinstance(value, float) and not math.isfinite(value)):
-        return "&ndash;"
-    return _e(format(value, fmt))
-
-
-def _vec(values, fmt=".1f"):
-    if values is None:
-        return "&ndash;"
-    return "(" + ", ".join(_num(v, fmt) for v in values) + ")"
-
-
-def _table(header, rows, *, classes=None):
-    head = "".join(f"<th>{_e(h)}</th>" for h in header)
-    body = []
-    for index, row in enumerate(rows):
-        cls = f' class="{classes[index]}"' if classes and classes[index] else ""
-        body.append(f"<tr{cls}>" + "".join(row) + "</tr>")
-    return f'<div class="wide"><table><tr>{head}</tr>{"".join(body)}</table></div>'
-
-
-def _td(text, numeric=False):
-    return f'<td class="n">{text}</td>' if numeric else f"<td>{text}</td>"
 
 
 def _where_rows(report):
@@ -115,7 +87,7 @@ def _figures(report, images):
     parts = []
     for name in report["files"]["figures"]:
         data = images.get(name)
-        if data is None:
+        if data is None or name.endswith(FAITHFULNESS_FIGURE):  # shown in its own section
             continue
         stem = name.rsplit("/", 1)[-1].rsplit(".", 1)[0]
         kind, _, method = stem.partition("_")
@@ -137,6 +109,19 @@ def _key_values(mapping):
             value = ", ".join(str(v) for v in value)
         rows.append([_td(_e(key)), _td(_e("null" if value is None else value))])
     return _table(["setting", "value"], rows)
+
+
+def _answer(culprit, target):
+    """The culprit sentence; an inconclusive one names no segment as the cause."""
+    what = f"{_e(target_phrase(target['label']))}, value {_num(target['value'])}"
+    if culprit.get("doubts"):
+        return (f"<b>{_e(culprit['statement'])}</b> (Target: {what}; Shapley value "
+                f"{_num(culprit['shapley'])}, margin {_num(culprit['margin'])} over the next "
+                "segment.)")
+    return (f"The segment that drove the target ({what}) is\n<b>{_e(culprit['segment_id'])} "
+            f"({_e(culprit['segment_abbr'])}, {_e(culprit['segment_name'])})</b>,\nwith a "
+            f"Shapley value of {_num(culprit['shapley'])} and a margin of "
+            f"{_num(culprit['margin'])}\nover the next segment.")
 
 
 def report_html(report, images):
@@ -179,15 +164,12 @@ def report_html(report, images):
 <h1>Case {_e(report['case_id'])}</h1>
 <div class="caution"><b>Caution.</b> {_e(report['cautions'][0])}</div>
 <div class="answer"><b>{_e(verdict(pred))}</b>
-The segment that drove the target ({_e(target_phrase(target['label']))}, value
-{_num(target['value'])}) is
-<b>{_e(culprit['segment_id'])} ({_e(culprit['segment_abbr'])}, {_e(culprit['segment_name'])})</b>,
-with a Shapley value of {_num(culprit['shapley'])} and a margin of {_num(culprit['margin'])}
-over the next segment.{where}</div>
+{_answer(culprit, target)}{where}</div>
 {reference}
 <h2>Where along the culprit</h2>
 {_table(["method", "peak (mm of arc)", "half-peak extent (mm)", "peak x, y, z (mm)",
          "peak voxel i, j, k"], _where_rows(report))}
+{quality_section(report, images)}
 <h2>Prediction</h2>
 <p>Model <code>{_e(model.get('name'))}</code>, weights hash <code>{_e(model.get('weights_hash'))}</code>.</p>
 {_table(["output column", "score", "softmax probability"], scores)}

@@ -7,7 +7,10 @@ import math
 
 import numpy as np
 
-__all__ = ["FORMAT", "explanation_dict", "dumps", "peak_dict"]
+from ..attribution.trace import LOW_MARGIN_FRACTION, culprit_doubts
+from .wording import culprit_statement
+
+__all__ = ["FORMAT", "explanation_dict", "dumps", "peak_dict", "doubts_of"]
 
 FORMAT = "culprit-lens-report/1"
 
@@ -67,12 +70,30 @@ def overlay_files(methods):
     return {**{m: f"overlays/{m}.nii.gz" for m in methods}, "culprit": "overlays/culprit.nii.gz"}
 
 
+def low_margin_fraction(explanation):
+    """The ``low_margin`` share in force: the quality settings', else the trace's default."""
+    quality = getattr(explanation, "quality", None)
+    if quality is None:
+        return LOW_MARGIN_FRACTION
+    return float(quality.settings.flag_thresholds["low_margin"])
+
+
+def doubts_of(explanation):
+    """The culprit's doubts by the one rule, :func:`explain.attribution.trace.culprit_doubts`."""
+    e = explanation
+    if e.target.get("value_all") is None or e.target.get("value_none") is None:
+        return ()
+    return culprit_doubts([s.shapley for s in e.segments], e.margin, e.target["value_all"],
+                          e.target["value_none"], fraction=low_margin_fraction(e))
+
+
 def explanation_dict(explanation, *, figures=()):
     """The report as a dict; ``figures`` lists the figure files written (relative paths)."""
     e = explanation
     culprit = e.culprit
     where = {m: {**(peak_dict(culprit.locations[m]) or {"arc_mm": None}),
                  "extent_mm": culprit.locations[m].extent_mm} for m in e.methods}
+    doubts = doubts_of(e)
     segments = []
     for s in e.segments:
         segments.append({
@@ -95,13 +116,18 @@ def explanation_dict(explanation, *, figures=()):
         "target": dict(e.target),
         "culprit": {"segment_id": culprit.id, "segment_abbr": culprit.abbr,
                     "segment_name": culprit.name, "territory": culprit.territory,
-                    "shapley": culprit.shapley, "margin": e.margin, "where": where},
+                    "shapley": culprit.shapley, "margin": e.margin, "where": where,
+                    "doubts": list(doubts),
+                    "statement": culprit_statement(culprit.label, doubts,
+                                                   low_margin=low_margin_fraction(e))},
         "segments": segments,
         "reference": _reference_dict(getattr(e.case, "reference", None)),
         "files": {**FILES, "overlays": overlay_files(e.methods), "figures": list(figures)},
         "cautions": list(e.cautions),
         "notes": list(e.notes),
     }
+    if getattr(e, "quality", None) is not None:
+        out["quality"] = e.quality.to_dict()
     return _plain(out)
 
 

@@ -6,6 +6,8 @@ import csv
 import io
 import math
 
+from ..quality.mass import REGION_NAMES
+
 __all__ = ["segment_rows", "segments_csv"]
 
 
@@ -23,6 +25,10 @@ def segment_rows(explanation):
     for m in e.methods:
         header += [f"{m}_peak_arc_mm", f"{m}_extent_start_mm", f"{m}_extent_end_mm",
                    f"{m}_peak_value"]
+    quality = getattr(e, "quality", None)
+    regions = () if quality is None else REGION_NAMES
+    for m in e.methods:
+        header += [f"{m}_{r}_share" for r in regions]
     rows = []
     for index, s in enumerate(e.segments):
         row = [str(s.id), s.abbr, s.name, s.territory, _num(s.length_mm, 4),
@@ -36,6 +42,9 @@ def segment_rows(explanation):
             else:
                 row += [_num(loc.peak.arc_mm, 4), _num(loc.extent_mm[0], 4),
                         _num(loc.extent_mm[1], 4), _num(loc.peak.value)]
+        for m in e.methods:
+            shares = quality.mass["per_segment"][s.id][m] if regions else {}
+            row += [_num(shares[r], 4) for r in regions]
         rows.append(row)
     return header, rows
 
