@@ -37,7 +37,8 @@ from ..geometry.jitter import lateral_jitter
 from .maps import saliency_maps
 from .similarity import spearman
 
-__all__ = ["Run", "StabilityResult", "onto_grid", "jittered_case", "augmentation_stability"]
+__all__ = ["DEFAULT_ROTATIONS_DEG", "Run", "StabilityResult", "onto_grid", "jittered_case",
+           "check_augmentations", "augmentation_stability"]
 
 DEFAULT_ROTATIONS_DEG = (0.0, 90.0, 180.0, 270.0)
 
@@ -196,7 +197,8 @@ def _run(model, sections, *, kind, setting, methods, target, common, original=No
     return run, maps
 
 
-def _check(rotations_deg, jitter_draws, jitter_rms_mm):
+def check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm):
+    """Validate the augmentation options; return the angles that are not multiples of 360."""
     try:
         angles = tuple(float(a) for a in rotations_deg)
     except (TypeError, ValueError):
@@ -206,6 +208,10 @@ def _check(rotations_deg, jitter_draws, jitter_rms_mm):
     if isinstance(jitter_draws, bool) or not isinstance(jitter_draws, (int, np.integer)) \
             or jitter_draws < 0:
         raise InputError(f"jitter draws: expected a whole number >= 0, got {jitter_draws!r}")
+    try:
+        jitter_rms_mm = float(jitter_rms_mm)
+    except (TypeError, ValueError):
+        raise InputError(f"jitter: expected an RMS shift in mm, got {jitter_rms_mm!r}") from None
     if not np.isfinite(jitter_rms_mm) or jitter_rms_mm <= 0:
         raise InputError(f"jitter: expected an RMS shift > 0 mm, got {jitter_rms_mm!r}")
     return tuple(a for a in angles if a % 360.0 != 0.0)
@@ -245,7 +251,7 @@ def augmentation_stability(model, case, *, sampling, methods, target, method_opt
     -------
     StabilityResult
     """
-    angles = _check(rotations_deg, jitter_draws, jitter_rms_mm)
+    angles = check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm)
     methods = tuple(methods)
     common = dict(method_options=method_options, baseline_hu=baseline_hu, seed=int(seed))
     base_sections = sample_case(case, **sampling)
