@@ -150,8 +150,8 @@ def _add_sanity_parser(sub):
         try:
             return tuple(float(a) for a in text.split(",") if a.strip())
         except ValueError:
-            raise argparse.ArgumentTypeError(
-                f"expected comma-separated angles in degrees, e.g. 0,90,180,270; got {text!r}")
+            raise InputError(f"--rotations: expected comma-separated angles in degrees, e.g. "
+                             f"0,90,180,270; got {text!r}") from None
 
     def compute(args, progress):
         from .case import load_case
@@ -164,7 +164,7 @@ def _add_sanity_parser(sub):
         model = load_model(args.model, weights=args.weights, grade_labels=labels)
         check_has_parameters(model)
         return run_sanity(model, case, progress=progress, stability=not args.no_stability,
-                          rotations_deg=args.rotations, jitter_draws=args.jitter_draws,
+                          rotations_deg=degrees(args.rotations), jitter_draws=args.jitter_draws,
                           jitter_rms_mm=args.jitter_mm, **_explain_options(args))
 
     def summary(check, page):
@@ -184,8 +184,8 @@ def _add_sanity_parser(sub):
         return 0
 
     def add_options(cmd, *, prefix=""):
-        cmd.add_argument(f"--{prefix}rotations", dest="rotations", type=degrees,
-                         default=(0.0, 90.0, 180.0, 270.0), metavar="DEG,DEG,...",
+        cmd.add_argument(f"--{prefix}rotations", dest="rotations", default="0,90,180,270",
+                         metavar="DEG,DEG,...",
                          help="rotations about the tangent for the stability check "
                               "(default 0,90,180,270; 0 is the unaugmented run)")
         cmd.add_argument(f"--{prefix}jitter-draws", dest="jitter_draws", type=int, default=3,
