@@ -83,3 +83,32 @@ def test_explain_with_sanity_refuses_a_model_without_parameters_before_writing(
                  "--out", str(out), "--sanity", "--quiet", *SMALL])
     assert code == 2 and "no parameters" in capsys.readouterr().err
     assert not out.exists()
+
+
+@pytest.fixture(scope="module")
+def two_runs(demo_case, tmp_path_factory):
+    """Two randomisation-only runs with the same inputs and seed."""
+    outs = []
+    for name in ("a", "b"):
+        out = tmp_path_factory.mktemp(f"sanity-{name}") / "out"
+        assert main(["sanity", "--case", str(demo_case), "--model", f"{MODELS}:weight_blind",
+                     "--out", str(out), "--no-stability", "--quiet", *SMALL]) == 0
+        outs.append(out)
+    return outs
+
+
+def test_same_inputs_and_seed_write_the_same_bytes(two_runs):
+    a, b = two_runs
+    for name in ("sanity.json", "sanity.html", "sanity.png"):
+        assert (a / name).read_bytes() == (b / name).read_bytes(), name
+
+
+@pytest.mark.browser
+def test_page_loads_and_its_figure_decodes_in_chromium(two_runs, tmp_path, chromium):
+    page = two_runs[0] / "sanity.html"
+    dom, console = chromium.run(page, tmp_path, "--dump-dom")
+    assert console == [] and "Sanity checks" in dom
+    result = chromium.probe(page, tmp_path)
+    png = (two_runs[0] / "sanity.png").read_bytes()
+    size = [int.from_bytes(png[16:20], "big"), int.from_bytes(png[20:24], "big")]  # PNG IHDR
+    assert result["count"] == 1 and result["sizes"][0] == size
