@@ -6,6 +6,8 @@ segment that wins the max (the offset is the same for every segment, so it never
 winner), so randomising any weight only rescales the map, or flips its sign: |map| keeps its
 ranks exactly. A saliency method on it must fail the randomisation check.
 
+``Scriptable``: a small protocol model TorchScript can compile.
+
 ``NoParameters``: the darkest value per segment, a max, a minus sign; nothing to randomise.
 """
 
@@ -37,6 +39,26 @@ class WeightBlind(nn.Module):
         energy = (x / 100.0).pow(2).mean(dim=(2, 3, 4))  # (B, S)
         return self.offset(energy[..., None])             # (B, S, 1)
 
+    def head(self, pooled):
+        return self.out(pooled)
+
+    def forward(self, x):
+        return self.head(self.encode_segments(x).max(dim=1).values)
+
+
+class Scriptable(nn.Module):
+    """A protocol model that TorchScript can compile (encoder and head exported)."""
+
+    def __init__(self):
+        super().__init__()
+        self.enc = nn.Linear(1, 3)
+        self.out = nn.Linear(3, 2)
+
+    @torch.jit.export
+    def encode_segments(self, x):
+        return torch.relu(self.enc((x / 100.0).pow(2).mean(dim=(2, 3, 4)).unsqueeze(-1)))
+
+    @torch.jit.export
     def head(self, pooled):
         return self.out(pooled)
 

@@ -80,6 +80,24 @@ def test_randomisation_is_seeded():
     assert a.to_dict()["seed"] == 3
 
 
+# the test builds its TorchScript module with torch.jit.script, deprecated in torch 2.13
+@pytest.mark.filterwarnings("ignore::DeprecationWarning:torch.jit")
+def test_torchscript_layers_are_redrawn_in_reverse_registration_order():
+    # TorchScript modules take no forward hooks and have no reset_parameters: the documented
+    # fallbacks apply, and every parameter still ends up redrawn.
+    torch.manual_seed(0)
+    scripted = torch.jit.script(models.Scriptable())
+    before = {k: v.clone() for k, v in scripted.state_dict().items()}
+    model = wrap_model(scripted)
+    x = torch.randn(1, 3, 6, 8, 8, generator=torch.Generator().manual_seed(1)) * 150
+    result = cascading_randomisation(model, x, methods=("gradient",), target=0)
+    assert [(layer.name, layer.seen_in_forward) for layer in result.layers] == [
+        ("out", False), ("enc", False)]
+    assert all(layer.reinit.startswith("normal") for layer in result.layers)
+    assert all(torch.equal(before[k], v) for k, v in scripted.state_dict().items())
+    assert len(set(result.weights_hashes)) == 3
+
+
 def test_a_model_without_parameters_is_refused():
     model = wrap_model(models.NoParameters())
     x = torch.zeros(1, 2, 4, 6, 6)
