@@ -55,7 +55,7 @@ def test_sanity_refuses_a_model_without_parameters(demo_case, tmp_path, capsys):
 
 @pytest.mark.parametrize("option, match", [
     (["--rotations", "0,ninety"], "--rotations"), (["--jitter-draws", "-2"], "jitter draws"),
-    (["--jitter-mm", "0"], "jitter")])
+    (["--jitter-mm", "0"], "jitter"), (["--seed", "-1"], "seed")])
 def test_sanity_bad_options_are_one_line_exit_2(demo_case, tmp_path, capsys, option, match):
     out = tmp_path / "out"
     code = main(["sanity", "--case", str(demo_case), "--model", f"{MODELS}:weight_blind",

@@ -197,8 +197,10 @@ def _run(model, sections, *, kind, setting, methods, target, common, original=No
     return run, maps
 
 
-def check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm):
+def check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm, *, seed=0):
     """Validate the augmentation options; return the angles that are not multiples of 360."""
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed: the jitter draws need a whole number >= 0, got {seed!r}")
     try:
         angles = tuple(float(a) for a in rotations_deg)
     except (TypeError, ValueError):
@@ -251,7 +253,7 @@ def augmentation_stability(model, case, *, sampling, methods, target, method_opt
     -------
     StabilityResult
     """
-    angles = check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm)
+    angles = check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm, seed=seed)
     methods = tuple(methods)
     common = dict(method_options=method_options, baseline_hu=baseline_hu, seed=int(seed))
     base_sections = sample_case(case, **sampling)

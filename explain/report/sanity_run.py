@@ -129,7 +129,7 @@ def run_sanity(model, case, *, methods=None, target="auto", points=None, size=No
     methods, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
     check_has_parameters(model)
     if stability:
-        check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm)
+        check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm, seed=seed)
     sampling = _sampling(model, points, size, pixel_mm)
     x = sample_case(case, **sampling).tensor()
     resolved = fixed_target(model, x, target)
