@@ -196,6 +196,103 @@ def _add_audit_parser(sub):
     aud.set_defaults(run=_cmd_audit)
 
 
+def _degrees(text):
+    """``--rotations``: comma-separated angles; parsed in the command so errors are one line."""
+    try:
+        return tuple(float(a) for a in text.split(",") if a.strip())
+    except ValueError:
+        raise InputError(f"--rotations: expected comma-separated angles in degrees, e.g. "
+                         f"0,90,180,270; got {text!r}") from None
+
+
+def _sanity_checks(args, progress):
+    """Load the case and model and run the sanity checks (nothing is written)."""
+    from .case import load_case
+    from .model import load_model
+    from .quality.sanity import check_has_parameters
+    from .report.sanity_run import run_sanity
+
+    case = load_case(args.case)
+    labels = None if args.grade_labels is None else _grade_labels(args.grade_labels)
+    model = load_model(args.model, weights=args.weights, grade_labels=labels)
+    check_has_parameters(model)
+    return run_sanity(model, case, progress=progress, stability=not args.no_stability,
+                      rotations_deg=_degrees(args.rotations), jitter_draws=args.jitter_draws,
+                      jitter_rms_mm=args.jitter_mm, **_explain_options(args))
+
+
+def _print_sanity(check, page):
+    for method, passed in check.passed.items():
+        word = "no verdict" if passed is None else ("passes" if passed else "FAILS")
+        print(f"{method}: {word} (Spearman after full randomisation "
+              f"{check.randomisation.final_spearman[method]:.3f})")
+    print(f"sanity page: {page}")
+
+
+def _cmd_sanity(args):
+    from .report.demo import progress_printer
+    from .report.files import check_out_dir
+
+    check_out_dir(args.out, force=args.force)
+    check = _sanity_checks(args, progress_printer(args.quiet))
+    _print_sanity(check, check.write(args.out, force=args.force))
+    return 0
+
+
+def _explain_with_sanity(plain_explain):
+    """``explain``, and with ``--sanity`` the sanity checks first, written into OUT/sanity/."""
+    def run(args):
+        if not args.sanity:
+            return plain_explain(args)
+        from pathlib import Path
+
+        from .report.demo import progress_printer
+        from .report.files import check_out_dir
+
+        # Checks and the slow work first; files are written only when all of it is done.
+        check_out_dir(args.out, force=args.force)
+        check = _sanity_checks(args, progress_printer(args.quiet))
+        status = plain_explain(args)
+        _print_sanity(check, check.write(Path(args.out) / "sanity"))
+        return status
+
+    return run
+
+
+def _add_sanity_options(cmd, *, prefix=""):
+    cmd.add_argument(f"--{prefix}rotations", dest="rotations", default="0,90,180,270",
+                     metavar="DEG,DEG,...",
+                     help="rotations about the tangent for the stability check "
+                          "(default 0,90,180,270; 0 is the unaugmented run)")
+    cmd.add_argument(f"--{prefix}jitter-draws", dest="jitter_draws", type=int, default=3,
+                     help="jittered copies of the centerlines (default 3)")
+    cmd.add_argument(f"--{prefix}jitter-mm", dest="jitter_mm", type=float, default=0.5,
+                     help="RMS lateral shift of the jitter, mm (default 0.5)")
+    cmd.add_argument(f"--{prefix}no-stability", dest="no_stability", action="store_true",
+                     help="randomisation only, no augmentations")
+
+
+def _add_sanity_parser(sub):
+    """``culprit-lens sanity``, and ``--sanity`` on ``explain`` (call after its parser)."""
+    san = sub.add_parser("sanity", help="check that the maps depend on the model's weights "
+                                        "(cascading randomisation) and are stable under "
+                                        "rotation and centerline jitter (slow)")
+    san.add_argument("--case", required=True, help="case.json (format culprit-lens-case/1)")
+    _add_model_options(san)
+    san.add_argument("--out", required=True, help="output folder (must be new or empty)")
+    _add_explain_options(san)
+    _add_sanity_options(san)
+    san.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    san.add_argument("--quiet", action="store_true", help="no progress messages")
+    san.set_defaults(run=_cmd_sanity)
+
+    exp = sub.choices["explain"]
+    exp.add_argument("--sanity", action="store_true",
+                     help="also run the sanity checks (docs/sanity.md), written into "
+                          "OUT/sanity/ (slow)")
+    _add_sanity_options(exp, prefix="sanity-")
+    exp.set_defaults(run=_explain_with_sanity(exp.get_default("run")))
+
 def build_parser():
     parser = argparse.ArgumentParser(
         prog="culprit-lens",
@@ -223,6 +320,7 @@ def build_parser():
     exp.set_defaults(run=_cmd_explain)
 
     _add_audit_parser(sub)
+    _add_sanity_parser(sub)
 
     ph = sub.add_parser("phantom", help="write synthetic CCTA cases with known lesions")
     ph.add_argument("--out", required=True, help="output folder (must be new or empty)")

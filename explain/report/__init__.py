@@ -8,6 +8,9 @@ run_demo
     demo.py: a phantom case explained with the bundled reference model.
 check_out_dir
     files.py: refuse a non-empty output folder before any work (the CLI calls it first).
+run_sanity, SanityCheck
+    sanity_run.py: the randomisation and stability checks of one case (docs/sanity.md);
+    sanity_page.py writes sanity.json, sanity.png and sanity.html.
 
 Files written (docs/report-format.md): report.json (jsonout.py), segments.csv (tables.py),
 attributions.npz and overlays (files.py), figures/*.png (figures.py), report.html (html.py).
@@ -18,8 +21,8 @@ from __future__ import annotations
 from .explanation import DEFAULT_METHODS, Explanation, SegmentResult, explain_case
 from .files import check_out_dir
 
-__all__ = ["DEFAULT_METHODS", "Explanation", "SegmentResult", "check_out_dir", "explain_case",
-           "run_demo"]
+__all__ = ["DEFAULT_METHODS", "Explanation", "SanityCheck", "SegmentResult", "check_out_dir",
+           "explain_case", "run_demo", "run_sanity"]
 
 
 def __getattr__(name):
@@ -27,4 +30,8 @@ def __getattr__(name):
         from .demo import run_demo
 
         return run_demo
+    if name in ("run_sanity", "SanityCheck"):
+        from . import sanity_run
+
+        return getattr(sanity_run, name)
     raise AttributeError(f"module 'explain.report' has no attribute {name!r}")
