@@ -95,12 +95,11 @@ def _gauss_legendre_ig(forward, x, baseline, n):
     """IG by an n-node Gauss-Legendre rule on [0, 1] (Sundararajan, Taly, Yan 2017, eq. 1),
     with the nodes and weights of numpy.polynomial.legendre.leggauss, and torch autograd."""
     nodes, weights = np.polynomial.legendre.leggauss(n)
-    alphas, weights = 0.5 * (nodes + 1.0), 0.5 * weights
-    total = torch.zeros_like(x, dtype=torch.float64)
-    for a, wt in zip(alphas, weights):
-        point = (baseline + float(a) * (x - baseline)).clone().requires_grad_(True)
-        (grad,) = torch.autograd.grad(forward(point).sum(), point)
-        total += float(wt) * grad.double()
+    alphas = torch.as_tensor(0.5 * (nodes + 1.0), dtype=x.dtype).reshape(-1, 1, 1, 1, 1)
+    points = (baseline + alphas * (x - baseline)).requires_grad_(True)  # all n points at once
+    (grads,) = torch.autograd.grad(forward(points).sum(), points)
+    weights = torch.as_tensor(0.5 * weights, dtype=torch.float64).reshape(-1, 1, 1, 1, 1)
+    total = (weights * grads.double()).sum(dim=0, keepdim=True)
     return (total * (x - baseline).double()).float()
 
 
@@ -112,12 +111,12 @@ def test_integrated_gradients_default_is_50_gauss_legendre_steps():
     def forward(inp):
         return net(inp)[:, 1]
 
-    ours = attribute(w, x, method="integrated_gradients", target=1, baseline_hu=-100.0)
+    ours = attribute(w, x, method="integrated_gradients", target=1, baseline_hu=-100.0,
+                     internal_batch_size=50)
     want = _gauss_legendre_ig(forward, x, -100.0, 50)
     torch.testing.assert_close(ours, want, rtol=1e-4, atol=1e-6)
-    # the rule is sensitive to the step count on this model: 2 or 10 nodes give other maps
-    for n in (2, 10):
-        assert float((_gauss_legendre_ig(forward, x, -100.0, n) - want).abs().max()) > 1e-3
+    # the rule is sensitive to the step count on this model: 2 nodes give another map
+    assert float((_gauss_legendre_ig(forward, x, -100.0, 2) - want).abs().max()) > 1e-3
     # explain_case runs it with the same 50 steps, and says so in the settings
     assert method_settings("integrated_gradients", (3, 4, 4), seed=0) == {"steps": 50}
 

@@ -168,3 +168,35 @@ def test_overlay_of_a_constant_map_is_that_constant_where_reached():
     assert set(np.unique(values).tolist()) == {0.0, 2.5}
     with pytest.raises(InputError, match="2 maps for 1"):
         overlay([np.ones((8, 5, 5))] * 2, [cs], like=image)
+
+
+def _analytic_tube(image, a, b, radius):
+    """Voxel centres (SimpleITK TransformIndexToPhysicalPoint) within ``radius`` of segment a-b."""
+    idx = np.array(list(np.ndindex(*image.GetSize())))
+    xyz = np.array([image.TransformIndexToPhysicalPoint(tuple(int(c) for c in v)) for v in idx])
+    dist, t = _m._segment_distance(xyz, a, b)
+    want = np.zeros(tuple(image.GetSize()[::-1]), dtype=bool)
+    want[idx[:, 2], idx[:, 1], idx[:, 0]] = (dist <= radius) & (t >= 0) & (t <= 1)
+    margin = np.zeros_like(want)
+    margin[idx[:, 2], idx[:, 1], idx[:, 0]] = np.abs(dist - radius) < 0.02
+    return want, margin
+
+
+@pytest.mark.parametrize("a, b", [
+    ((-3.0, 3.0, 2.8), (4.0, 3.0, 2.8)),     # enters through the low x face
+    ((2.0, 3.0, 4.0), (2.0, 3.0, 11.0)),     # leaves through the high z face
+    ((2.0, 1.0, 0.5), (2.0, 6.0, 0.5)),      # along y, half of it below z = 0
+])
+def test_lumen_label_of_an_axis_aligned_tube_crossing_the_image_border(a, b):
+    # anisotropic voxels and a tube cut by the image's faces: the label is the analytic
+    # cylinder's voxels inside the image, no more (nothing wraps round to the far side)
+    image = _m.make_image(size=(10, 12, 14), rotation_deg=0.0, origin=(0.0, 0.0, 0.0),
+                          spacing=(0.5, 0.6, 0.7))
+    a, b = np.asarray(a), np.asarray(b)
+    line = a + np.linspace(0, 1, 5)[:, None] * (b - a)
+    from explain.mapping import lumen_label
+
+    got = sitk.GetArrayFromImage(lumen_label(image, line, 1.3)) == 1
+    want, margin = _analytic_tube(image, a, b, 1.3)
+    assert want.any()
+    assert np.array_equal(got[~margin], want[~margin])
