@@ -66,7 +66,7 @@ def test_culprit_is_the_largest_shapley_value_not_leave_one_out():
     assert tr.value_all == pytest.approx(15.0, abs=1e-5)
     assert tr.value_empty == pytest.approx(0.0, abs=1e-9)
     # gradient x feature (d head / d pooled = 1): each channel's value goes to its winner
-    np.testing.assert_allclose(tr.gradient, [10.0, 0.0, 5.0], atol=1e-5)
+    np.testing.assert_allclose(tr.gradient_x_feature, [10.0, 0.0, 5.0], atol=1e-5)
     assert tr.winners.tolist() == [0, 2]
 
 

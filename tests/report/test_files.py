@@ -32,7 +32,7 @@ def test_every_file_is_written(written_report):
 def test_report_json_fields(written_report, synthetic_explanation):
     out, _ = written_report
     report = json.loads((out / "report.json").read_text())
-    assert report["format"] == "culprit-lens-report/1"
+    assert report["format"] == "culprit-lens-report/2"
     assert report["case_id"] == "synthetic-1"
     assert set(report["model"]) >= {"name", "weights_hash"}
     assert report["settings"]["seed"] == 0
@@ -44,7 +44,7 @@ def test_report_json_fields(written_report, synthetic_explanation):
     assert CAUTION in report["cautions"]
     assert [s["id"] for s in report["segments"]] == [1, 6, 7]
     for s in report["segments"]:
-        assert set(s) >= {"id", "name", "territory", "winning_channels", "gradient",
+        assert set(s) >= {"id", "name", "territory", "winning_channels", "gradient_x_feature",
                           "leave_one_out", "shapley", "peaks", "extent_mm"}
         for method in ("integrated_gradients", "occlusion"):
             assert set(s["peaks"][method]) >= {"arc_mm", "xyz_mm", "voxel", "value"}
@@ -79,7 +79,8 @@ def _check_against_the_hand_made_inputs(report):
     # the hand-made trace: gradient x feature, leave-one-out and Shapley per segment index
     rows = {s["id"]: s for s in report["segments"]}
     for sid, grad, loo, phi in ((1, 0.1, 0.05, 0.1), (6, 0.2, 0.1, 0.15), (7, 1.1, 0.9, 1.2)):
-        assert rows[sid]["gradient"] == pytest.approx(grad)
+        assert rows[sid]["gradient_x_feature"] == pytest.approx(grad)
+        assert "gradient" not in rows[sid]  # renamed in culprit-lens-report/2
         assert rows[sid]["leave_one_out"] == pytest.approx(loo)
         assert rows[sid]["shapley"] == pytest.approx(phi)
         assert rows[sid]["shapley_stderr"] is None
@@ -175,6 +176,11 @@ def test_segments_csv(written_report, synth):
     assert rows[2]["reference_stenosis_percent"] == "60"
     assert rows[1]["reference_stenosis_percent"] == ""
     assert float(rows[2]["occlusion_peak_arc_mm"]) == pytest.approx(synth.BLOB_ARC_MM, abs=0.5)
+    # culprit-lens-report/2: gradient x feature under its own name; each peak column names its
+    # aggregate (the positive part for these two methods, docs/report-format.md)
+    assert float(rows[2]["gradient_x_feature"]) == pytest.approx(1.1) and "gradient" not in rows[2]
+    for method in ("integrated_gradients", "occlusion"):
+        assert f"{method}_peak_positive_sum" in rows[2] and f"{method}_peak_value" not in rows[2]
 
 
 def test_existing_output_refused_unless_force(tmp_path, synth):
