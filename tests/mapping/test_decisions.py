@@ -46,6 +46,8 @@ ARC = np.array([0.0, 0.7, 1.9, 2.4, 3.8, 4.1, 5.6, 6.0, 7.5])
     [0, 0, 0, 0, 0, 1, 1, 4, 0],      # the peak next to the last sample
     [0, 4, 1, 0, 0, 0, 0, 0, 0],      # the peak next to the first sample
     [0, 0, 0, 0, 0, 0, 1, 3, 4],      # the peak at the end
+    [3, 4, 0, 0, 0, 0, 0, 0, 3],      # the run stops at the start, not round to the end
+    [0, 0, 0, 0, 1, 3, 4, 2, 2],      # exactly half up to the end: the run reaches it
 ])
 def test_half_peak_extent_is_the_brute_force_fwhm(p):
     p = np.asarray(p, float)
@@ -142,15 +144,24 @@ def test_locate_records_its_inputs_and_checks_each_shape():
     image = _m.make_image()
     pts, arc, _ = _stack()
     m = np.zeros((6, 5, 5))
-    m[2, 1, 1] = 3.0
+    m[2, 1, 1] = -3.0
     loc = locate(m, pts, arc, image=image, aggregate="absolute")
     assert loc.aggregate == "absolute" and loc.arc_mm.tolist() == arc.tolist()
     assert loc.profile.tolist() == [0, 0, 3.0, 0, 0, 0]
     assert loc.extent_mm == pytest.approx((1.5, 2.5))
-    with pytest.raises(InputError, match="arc_mm"):
+    assert repr(loc) == "Location(6 cross-sections, absolute, peak at 2.0 mm, extent 1.5-2.5 mm)"
+    none = locate(m, pts, arc, image=image)  # no positive attribution
+    assert none.peak is None and none.extent_mm is None
+    assert repr(none) == "Location(6 cross-sections, positive, no peak)"
+    shapes = r"do not match; expected \(N, H, W\), \(N, H, W, 3\) and \(N,\)"
+    with pytest.raises(InputError, match="arc_mm .*" + shapes):
         locate(m, pts, arc[:-1], image=image)
-    with pytest.raises(InputError, match="points_mm"):
+    with pytest.raises(InputError, match="points_mm .*" + shapes):
         locate(m, pts[:, :-1], arc, image=image)
+    with pytest.raises(InputError, match="NaN or infinite values"):
+        locate(np.full((6, 5, 5), np.nan), pts, arc, image=image)
+    with pytest.raises(InputError, match="aggregate: expected one of positive, absolute, got 'sum'"):
+        locate(m, pts, arc, image=image, aggregate="sum")
 
 
 def test_overlay_of_a_constant_map_is_that_constant_where_reached():
