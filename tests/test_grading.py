@@ -63,3 +63,44 @@ def test_bad_stenosis(bad):
 ])
 def test_cury_2022_plaque_burden(score, band):
     assert plaque_burden(score) == band
+
+
+def test_agrees_with_the_hand_written_cury_2022_table_on_random_patients():
+    # tests/phantom/cadrads_table.py writes the guideline's table out independently of
+    # explain.grading; 400 seeded random patients of 1-6 segments must grade alike
+    import importlib.util
+    from pathlib import Path
+
+    import numpy as np
+
+    spec = importlib.util.spec_from_file_location(
+        "cadrads_table", Path(__file__).parent / "phantom" / "cadrads_table.py")
+    table = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(table)
+    rng = np.random.default_rng(15)
+    edges = [0, 1, 24, 25, 49, 50, 69, 70, 99, 100]
+    segments = [1, 2, 3, 5, 6, 7, 9, 11, 12, 13, 16, 17]
+    for _ in range(400):
+        chosen = rng.choice(segments, size=rng.integers(1, 7), replace=False)
+        stenosis = {int(s): float(rng.choice(edges) if rng.random() < 0.5 else rng.uniform(0, 100))
+                    for s in chosen}
+        plaque = bool(rng.random() < 0.3)
+        assert cadrads_category(stenosis, plaque=plaque) == table.cury_2022_category(
+            stenosis, plaque=plaque), stenosis
+
+
+def test_error_messages_name_the_field_and_what_came():
+    with pytest.raises(InputError, match=r"expected one of 0, 1, 2, 3, 4A, 4B, 5, got '6'"):
+        category_rank("6")
+    with pytest.raises(InputError, match=r"stenosis_percent: expected a mapping .* got list"):
+        cadrads_category([40.0])
+    with pytest.raises(InputError, match=r"stenosis_percent\[6\]: expected a number of percent, got 'a'"):
+        cadrads_category({6: "a"})
+    with pytest.raises(InputError, match=r"stenosis_percent\[6\]: a diameter stenosis lies in 0-100 %, got 101"):
+        cadrads_category({6: 101})
+    with pytest.raises(InputError, match=r"calcium_score: expected a finite score >= 0, got -1"):
+        plaque_burden(-1)
+    with pytest.raises(InputError, match="calcium_score"):
+        plaque_burden(float("nan"))  # not finite, though not below 0
+    with pytest.raises(InputError, match="calcium_score"):
+        plaque_burden(float("inf"))

@@ -46,8 +46,9 @@ class SegmentTrace:
     ----------
     winners : (C,) int
         Winning segment (index into the case's segments) of each pooled channel.
-    gradient : (S,) float64
-        Gradient times feature at the pooled layer, summed over the channels each segment won.
+    gradient_x_feature : (S,) float64
+        Gradient times feature at the pooled layer, summed over the channels each segment won
+        (target units).
     leave_one_out : (S,) float64
         ``v(all) - v(all without s)``.
     shapley : (S,) float64
@@ -68,7 +69,7 @@ class SegmentTrace:
     """
 
     winners: np.ndarray
-    gradient: np.ndarray
+    gradient_x_feature: np.ndarray
     leave_one_out: np.ndarray
     shapley: np.ndarray
     shapley_stderr: np.ndarray | None
@@ -222,7 +223,7 @@ def trace_segments(
     pooled = feats.max(dim=0).values.clone().requires_grad_(True)
     tgt(wrapped.head(pooled[None]))[0].backward()
     per_channel = (pooled.grad * pooled).detach().double()
-    gradient = torch.zeros(s, dtype=torch.float64).index_add_(0, winners, per_channel).numpy()
+    grad_x_feat = torch.zeros(s, dtype=torch.float64).index_add_(0, winners, per_channel).numpy()
 
     def value_head(p):
         return head_values(wrapped, tgt, p, batch=batch)
@@ -252,7 +253,8 @@ def trace_segments(
     culprit = int(order[0])
     margin = float(shapley[order[0]] - (shapley[order[1]] if s > 1 else 0.0))
     return SegmentTrace(
-        winners=winners.numpy(), gradient=gradient, leave_one_out=np.asarray(leave_one_out),
+        winners=winners.numpy(), gradient_x_feature=grad_x_feat,
+        leave_one_out=np.asarray(leave_one_out),
         shapley=shapley, shapley_stderr=stderr, culprit=culprit, margin=margin,
         target_index=tgt.label, value_all=value_all, value_empty=value_empty,
         baseline_hu=float(baseline_hu), n_permutations=n_perm, seed=used_seed,

@@ -60,7 +60,7 @@ class SegmentResult:
         Centerline length, mm.
     winning_channels : tuple of int
         Pooled channels whose maximum came from this segment.
-    gradient, leave_one_out, shapley : float
+    gradient_x_feature, leave_one_out, shapley : float
         Contributions to the target, in the target's units (see :mod:`explain.attribution`).
     shapley_stderr : float or None
         Standard error when Shapley values were sampled, else None.
@@ -76,7 +76,7 @@ class SegmentResult:
     territory: str
     length_mm: float
     winning_channels: tuple
-    gradient: float
+    gradient_x_feature: float
     leave_one_out: float
     shapley: float
     shapley_stderr: float | None
@@ -174,7 +174,7 @@ class Explanation:
                 f"peak along culprit: {', '.join(where) or 'no maps'})")
 
     def to_dict(self):
-        """The content of report.json (format ``culprit-lens-report/1``) as plain Python."""
+        """The content of report.json (format ``culprit-lens-report/2``) as plain Python."""
         from .jsonout import explanation_dict
 
         return explanation_dict(self)
@@ -446,7 +446,8 @@ def _segment_results(case, sections, trace, maps):
             id=int(segment_id), abbr=seg.abbr, name=seg.name, territory=seg.territory,
             length_mm=float(seg.centerline.length_mm),
             winning_channels=tuple(int(c) for c in np.flatnonzero(winners == s)),
-            gradient=float(trace.gradient[s]), leave_one_out=float(trace.leave_one_out[s]),
+            gradient_x_feature=float(trace.gradient_x_feature[s]),
+            leave_one_out=float(trace.leave_one_out[s]),
             shapley=float(trace.shapley[s]),
             shapley_stderr=None if stderr is None else float(stderr[s]),
             reference_stenosis_percent=stenosis.get(int(segment_id)),

@@ -64,7 +64,7 @@ def _where_rows(report):
 
 def _segment_table(report):
     methods = report["settings"]["methods"]
-    header = ["segment", "name", "territory", "Shapley", "leave-one-out", "gradient",
+    header = ["segment", "name", "territory", "Shapley", "leave-one-out", "gradient x feature",
               "channels won", "ref. stenosis %"] + [f"{m} peak mm" for m in methods]
     rows, classes = [], []
     culprit = report["culprit"]["segment_id"]
@@ -73,7 +73,8 @@ def _segment_table(report):
                # fixed decimals in target units: float noise (~1e-7) of an exact
                # difference reads as 0.000, not as 4.768e-07
                _td(_num(s["shapley"], ".3f"), True), _td(_num(s["leave_one_out"], ".3f"), True),
-               _td(_num(s["gradient"], ".3f"), True), _td(_e(len(s["winning_channels"])), True),
+               _td(_num(s["gradient_x_feature"], ".3f"), True),
+               _td(_e(len(s["winning_channels"])), True),
                _td(_num(s["reference_stenosis_percent"], "g"), True)]
         for m in methods:
             peak = s["peaks"].get(m)

@@ -12,7 +12,7 @@ from .wording import culprit_statement
 
 __all__ = ["FORMAT", "explanation_dict", "dumps", "peak_dict", "doubts_of"]
 
-FORMAT = "culprit-lens-report/1"
+FORMAT = "culprit-lens-report/2"
 
 FILES = {
     "report": "report.json",
@@ -99,7 +99,8 @@ def explanation_dict(explanation, *, figures=()):
         segments.append({
             "id": s.id, "abbr": s.abbr, "name": s.name, "territory": s.territory,
             "length_mm": s.length_mm, "winning_channels": list(s.winning_channels),
-            "gradient": s.gradient, "leave_one_out": s.leave_one_out, "shapley": s.shapley,
+            "gradient_x_feature": s.gradient_x_feature, "leave_one_out": s.leave_one_out,
+            "shapley": s.shapley,
             "shapley_stderr": s.shapley_stderr,
             "reference_stenosis_percent": s.reference_stenosis_percent,
             "peaks": {m: peak_dict(s.locations[m]) for m in e.methods},

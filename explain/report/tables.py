@@ -21,10 +21,12 @@ def segment_rows(explanation):
     """Header and rows of the segment table as lists of strings."""
     e = explanation
     header = ["id", "abbr", "name", "territory", "length_mm", "culprit", "shapley",
-              "leave_one_out", "gradient", "winning_channels", "reference_stenosis_percent"]
+              "leave_one_out", "gradient_x_feature", "winning_channels", "reference_stenosis_percent"]
     for m in e.methods:
+        # the peak's profile value, named after its aggregate (explain.mapping.profile)
+        aggregate = e.segments[0].locations[m].aggregate if e.segments else "positive"
         header += [f"{m}_peak_arc_mm", f"{m}_extent_start_mm", f"{m}_extent_end_mm",
-                   f"{m}_peak_value"]
+                   f"{m}_peak_{aggregate}_sum"]
     quality = getattr(e, "quality", None)
     regions = () if quality is None else REGION_NAMES
     for m in e.methods:
@@ -33,7 +35,7 @@ def segment_rows(explanation):
     for index, s in enumerate(e.segments):
         row = [str(s.id), s.abbr, s.name, s.territory, _num(s.length_mm, 4),
                "yes" if index == e.culprit_index else "no", _num(s.shapley),
-               _num(s.leave_one_out), _num(s.gradient), str(len(s.winning_channels)),
+               _num(s.leave_one_out), _num(s.gradient_x_feature), str(len(s.winning_channels)),
                _num(s.reference_stenosis_percent, 4)]
         for m in e.methods:
             loc = s.locations[m]

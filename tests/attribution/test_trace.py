@@ -113,7 +113,7 @@ def test_darkest_lumen_max_game_matches_closed_form_and_culprit():
     c = np.array([400.0 - v for v in darkest])  # -v - (-400): gain over the baseline segment
     np.testing.assert_allclose(tr.shapley, _airport(c), atol=1e-5)
     assert tr.culprit == 3 and tr.winners.tolist() == [3]
-    np.testing.assert_allclose(tr.gradient, [0, 0, 0, -20.0, 0, 0], atol=1e-6)  # grad 1 x feature
+    np.testing.assert_allclose(tr.gradient_x_feature, [0, 0, 0, -20.0, 0, 0], atol=1e-6)  # grad 1 x feature
 
 
 def test_permutation_sampling_above_twenty_segments():

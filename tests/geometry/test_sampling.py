@@ -105,6 +105,25 @@ def test_sections_agree_with_simpleitk_linear_resample():
         assert np.abs(cs.values[n] - sitk.GetArrayFromImage(resampled)[0]).max() < 1e-3
 
 
+def _parallel_transport(line, normal0, at_mm, steps=4000):
+    """Normals at ``at_mm`` carried from ``normal0`` by minimal rotations between tangents."""
+    arc = np.linspace(0.0, line.length_mm, steps + 1)
+    tangents = line.tangent_at(arc)
+    tangents = tangents / np.linalg.norm(tangents, axis=1, keepdims=True)
+    normals = np.empty_like(tangents)
+    normals[0] = normal0
+    for i in range(steps):
+        a, b = tangents[i], tangents[i + 1]
+        axis, cos = np.cross(a, b), float(a @ b)
+        n = normals[i]
+        # Rodrigues' rotation by the angle between a and b about a x b
+        normals[i + 1] = n * cos + np.cross(axis, n) + axis * (axis @ n) / (1.0 + cos)
+        normals[i + 1] -= (normals[i + 1] @ b) * b
+        normals[i + 1] /= np.linalg.norm(normals[i + 1])
+    return np.stack([np.array([np.interp(s, arc, normals[:, d]) for d in range(3)])
+                     for s in at_mm])
+
+
 def test_pixels_follow_the_architecture_convention():
     # docs/architecture.md: pixel [row, col] = centre + (col-(W-1)/2) p u + (row-(H-1)/2) p v.
     image = oblique_image(np.zeros(SIZE[::-1]))
@@ -121,6 +140,11 @@ def test_pixels_follow_the_architecture_convention():
         rotation_minimizing_frames(cs.points_mm[:, 2, 2], line.tangent_at(cs.arc_mm)),
         atol=1e-9,
     )
+    # Independently of that function: parallel transport (Bishop 1975, "There is more than one
+    # way to frame a curve") of the first normal along 4000 steps of the curve, each step
+    # turning it by the smallest rotation that takes one tangent to the next (Rodrigues).
+    np.testing.assert_allclose(cs.frames[:, 1], _parallel_transport(line, cs.frames[0, 1],
+                                                                    cs.arc_mm), atol=1e-6)
     r = np.radians(30.0)
     u = np.cos(r) * cs.frames[:, 1] + np.sin(r) * cs.frames[:, 2]
     v = -np.sin(r) * cs.frames[:, 1] + np.cos(r) * cs.frames[:, 2]

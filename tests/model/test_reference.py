@@ -24,8 +24,35 @@ def test_shipped_weights_load(reference):
     shipped = resources.files("explain.model").joinpath("reference.pt")
     assert shipped.stat().st_size < 5_000_000  # "a few MB at most"
     metrics = json.loads(resources.files("explain.model").joinpath("reference-metrics.json").read_text())
-    assert metrics["case_seed_overlap_train_heldout"] == 0
     assert len(metrics["confusion_rows_true_cols_predicted"]) == len(CATEGORIES)
+
+
+def test_training_metrics_recomputed_independently():
+    # Not what the training script says, but what can be recomputed: the case seeds of the
+    # train and held-out cohorts from explain.phantom.plan_cohort (no overlap), and the
+    # accuracies from the confusion matrix (trace / total; within one category: the three
+    # central diagonals), elementary arithmetic.
+    import numpy as np
+
+    from explain.phantom import plan_cohort
+
+    metrics = json.loads(resources.files("explain.model").joinpath("reference-metrics.json").read_text())
+    cfg = metrics["settings"]
+    train = {e.seed for e in plan_cohort(count=cfg["train_count"], seed=cfg["train_cohort_seed"])}
+    held = {e.seed for e in plan_cohort(count=cfg["heldout_count"], seed=cfg["heldout_cohort_seed"])}
+    test = {e.seed for e in plan_cohort(count=cfg["test_count"], seed=cfg["test_cohort_seed"])}
+    assert len(train) == cfg["train_count"] and len(held) == cfg["heldout_count"]
+    assert not train & held and not train & test
+    assert metrics["case_seed_overlap_train_heldout"] == len(train & held)
+    m = np.asarray(metrics["confusion_rows_true_cols_predicted"])
+    assert m.shape == (7, 7) and m.sum() == metrics["heldout_cases"] == cfg["heldout_count"]
+    assert metrics["heldout_accuracy"] == pytest.approx(np.trace(m) / m.sum(), abs=1e-12)
+    near = sum(np.trace(m, offset=k) for k in (-1, 0, 1))
+    assert metrics["heldout_within_one_category"] == pytest.approx(near / m.sum(), abs=1e-12)
+    # the held-out cohort's true categories are the ones plan_cohort planned for it
+    planned = [e.category for e in plan_cohort(count=cfg["heldout_count"],
+                                               seed=cfg["heldout_cohort_seed"])]
+    assert m.sum(axis=1).tolist() == [planned.count(c) for c in CATEGORIES]
 
 
 def test_reference_runs_all_steps_on_a_small_patient(reference):

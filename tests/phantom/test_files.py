@@ -7,7 +7,9 @@ of issue 2 section 2 (docs/case-format.md) as enforced by ``load_case``; CAD-RAD
 """
 
 import csv
+import importlib.util
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -15,9 +17,15 @@ import SimpleITK as sitk
 
 from explain.case import load_case
 from explain.errors import InputError
-from explain.grading import CATEGORIES, cadrads_category
+from explain.grading import CATEGORIES
 from explain.phantom import make_phantom, write_cohort, write_phantom_case
 from explain.phantom import writer as writer_module
+
+_spec = importlib.util.spec_from_file_location("cadrads_table",
+                                               Path(__file__).with_name("cadrads_table.py"))
+_table = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(_table)
+cury_2022_category = _table.cury_2022_category  # hand-written Cury 2022 table
 
 QUICK = dict(spacing_mm=0.9)  # coarse voxels: these tests are about files, not about HU
 
@@ -43,7 +51,7 @@ def test_written_case_loads_and_matches_the_case_in_memory(tmp_path):
     assert np.allclose(case.image.GetSpacing(), memory.image.GetSpacing())
     ref = case.reference
     assert ref.grade == memory.reference["grade"] == "5"
-    assert ref.grade == cadrads_category(ref.stenosis_percent, plaque=True)
+    assert ref.grade == cury_2022_category(ref.stenosis_percent, plaque=True)
     assert ref.stenosis_percent == memory.reference["stenosis_percent"]
     assert [(l.segment, l.start_mm, l.end_mm) for l in ref.lesions] == [
         (p.segment, p.start_mm, p.end_mm) for p in memory.lesions]
@@ -135,7 +143,7 @@ def test_cohort_folder_and_csv(tmp_path):
     for row in rows:
         case = load_case(path.parent / row["case"])  # `case` is relative to the CSV's folder
         assert case.reference.grade == row["grade"]
-        assert case.reference.grade == cadrads_category(case.reference.stenosis_percent,
+        assert case.reference.grade == cury_2022_category(case.reference.stenosis_percent,
                                                         plaque=bool(row["lesions"]))
         # the recorded seed and lesions rebuild the case exactly
         again = make_phantom(seed=int(row["seed"]), spacing_mm=1.2,

@@ -91,7 +91,7 @@ def make_explanation(case=None, *, methods=("integrated_gradients", "occlusion")
                 m[s] -= 0.05      # a signed map: some negative attribution everywhere
         maps[method] = m
     trace = SimpleNamespace(
-        winners=np.array([2, 2, 0, 1, 2, 2]), gradient=np.array([0.1, 0.2, 1.1]),
+        winners=np.array([2, 2, 0, 1, 2, 2]), gradient_x_feature=np.array([0.1, 0.2, 1.1]),
         leave_one_out=np.array([0.05, 0.1, 0.9]), shapley=np.array([0.1, 0.15, 1.2]),
         shapley_stderr=None, culprit=2, margin=1.05)
     segments = _segment_results(case, sections, trace, maps)

@@ -32,7 +32,7 @@ def test_every_file_is_written(written_report):
 def test_report_json_fields(written_report, synthetic_explanation):
     out, _ = written_report
     report = json.loads((out / "report.json").read_text())
-    assert report["format"] == "culprit-lens-report/1"
+    assert report["format"] == "culprit-lens-report/2"
     assert report["case_id"] == "synthetic-1"
     assert set(report["model"]) >= {"name", "weights_hash"}
     assert report["settings"]["seed"] == 0
@@ -44,17 +44,63 @@ def test_report_json_fields(written_report, synthetic_explanation):
     assert CAUTION in report["cautions"]
     assert [s["id"] for s in report["segments"]] == [1, 6, 7]
     for s in report["segments"]:
-        assert set(s) >= {"id", "name", "territory", "winning_channels", "gradient",
+        assert set(s) >= {"id", "name", "territory", "winning_channels", "gradient_x_feature",
                           "leave_one_out", "shapley", "peaks", "extent_mm"}
         for method in ("integrated_gradients", "occlusion"):
             assert set(s["peaks"][method]) >= {"arc_mm", "xyz_mm", "voxel", "value"}
             assert len(s["extent_mm"][method]) == 2
     # winners [2, 2, 0, 1, 2, 2]: segment index 2 (id 7) won channels 0, 1, 4, 5.
     assert report["segments"][2]["winning_channels"] == [0, 1, 4, 5]
-    # The report equals the in-memory dict (apart from the figure list added on writing).
+    # The written report is the in-memory dict (apart from the figure list added on writing)...
     again = synthetic_explanation.to_dict()
     again["files"]["figures"] = report["files"]["figures"]
     assert again == report
+    # ... and both hold what tests/report/conftest.py put in, written out here by hand.
+    _check_against_the_hand_made_inputs(report)
+
+
+def _check_against_the_hand_made_inputs(report):
+    assert set(report) == {"format", "case_id", "case", "model", "settings", "prediction",
+                           "target", "culprit", "segments", "reference", "files", "cautions",
+                           "notes"}
+    a = math.radians(20)
+    assert report["case"]["path"] == "/nowhere/case.json"
+    assert report["case"]["segment_ids"] == [1, 6, 7]
+    image = report["case"]["image"]
+    assert image["size"] == [64, 60, 56]
+    assert image["spacing_mm"] == pytest.approx([0.5, 0.5, 0.55])
+    assert image["origin_mm"] == pytest.approx([-20.0, 12.0, 101.0])
+    assert image["direction"] == pytest.approx(
+        [math.cos(a), -math.sin(a), 0, math.sin(a), math.cos(a), 0, 0, 0, 1])
+    assert report["model"] == {"name": "hand-made", "weights_hash": "0" * 16,
+                               "grade_labels": ["0", "1", "2", "3"]}
+    assert report["target"] == {"requested": "predicted", "label": 3, "value": 2.0}
+    assert report["prediction"]["column"] == 3 and report["prediction"]["grade"] == "3"
+    # the hand-made trace: gradient x feature, leave-one-out and Shapley per segment index
+    rows = {s["id"]: s for s in report["segments"]}
+    for sid, grad, loo, phi in ((1, 0.1, 0.05, 0.1), (6, 0.2, 0.1, 0.15), (7, 1.1, 0.9, 1.2)):
+        assert rows[sid]["gradient_x_feature"] == pytest.approx(grad)
+        assert "gradient" not in rows[sid]  # renamed in culprit-lens-report/2
+        assert rows[sid]["leave_one_out"] == pytest.approx(loo)
+        assert rows[sid]["shapley"] == pytest.approx(phi)
+        assert rows[sid]["shapley_stderr"] is None
+    assert [rows[i]["winning_channels"] for i in (1, 6, 7)] == [[2], [3], [0, 1, 4, 5]]
+    assert [rows[i]["abbr"] for i in (1, 6, 7)] == ["pRCA", "pLAD", "mLAD"]  # SCCT 2014
+    assert [rows[i]["reference_stenosis_percent"] for i in (1, 6, 7)] == [20.0, None, 60.0]
+    assert report["culprit"]["shapley"] == pytest.approx(1.2)
+    assert report["culprit"]["territory"] == "LAD"
+    assert report["reference"] == {
+        "grade": "3", "stenosis_percent": {"1": 20.0, "7": 60.0},
+        "lesions": [{"segment": 7, "start_mm": 6.0, "end_mm": 10.0}], "has_lesion_mask": False}
+    files = dict(report["files"])
+    files.pop("figures")
+    assert files == {
+        "report": "report.json", "table": "segments.csv", "attributions": "attributions.npz",
+        "html": "report.html",
+        "overlays": {"integrated_gradients": "overlays/integrated_gradients.nii.gz",
+                     "occlusion": "overlays/occlusion.nii.gz",
+                     "culprit": "overlays/culprit.nii.gz"}}
+    assert report["notes"] == []
 
 
 def test_peaks_where_the_hand_made_maps_peak(synthetic_explanation, synth):
@@ -130,6 +176,11 @@ def test_segments_csv(written_report, synth):
     assert rows[2]["reference_stenosis_percent"] == "60"
     assert rows[1]["reference_stenosis_percent"] == ""
     assert float(rows[2]["occlusion_peak_arc_mm"]) == pytest.approx(synth.BLOB_ARC_MM, abs=0.5)
+    # culprit-lens-report/2: gradient x feature under its own name; each peak column names its
+    # aggregate (the positive part for these two methods, docs/report-format.md)
+    assert float(rows[2]["gradient_x_feature"]) == pytest.approx(1.1) and "gradient" not in rows[2]
+    for method in ("integrated_gradients", "occlusion"):
+        assert f"{method}_peak_positive_sum" in rows[2] and f"{method}_peak_value" not in rows[2]
 
 
 def test_existing_output_refused_unless_force(tmp_path, synth):
