@@ -8,18 +8,23 @@ run_demo
     demo.py: a phantom case explained with the bundled reference model.
 check_out_dir
     files.py: refuse a non-empty output folder before any work (the CLI calls it first).
+write_dicom, DicomOutput
+    dicom.py: the DICOM objects of a DICOM case (parametric maps, segmentation) in
+    overlays/dicom/; dicom_regions.py: the segmentation's masks and segment descriptions.
 
 Files written (docs/report-format.md): report.json (jsonout.py), segments.csv (tables.py),
-attributions.npz and overlays (files.py), figures/*.png (figures.py), report.html (html.py).
+attributions.npz and overlays (files.py), overlays/dicom/ (dicom.py), figures/*.png
+(figures.py), report.html (html.py).
 """
 
 from __future__ import annotations
 
 from .explanation import DEFAULT_METHODS, Explanation, SegmentResult, explain_case
+from .dicom import DicomOutput, write_dicom
 from .files import check_out_dir
 
-__all__ = ["DEFAULT_METHODS", "Explanation", "SegmentResult", "check_out_dir", "explain_case",
-           "run_demo"]
+__all__ = ["DEFAULT_METHODS", "DicomOutput", "Explanation", "SegmentResult", "check_out_dir",
+           "explain_case", "run_demo", "write_dicom"]
 
 
 def __getattr__(name):

@@ -51,9 +51,15 @@ def test_report_json_fields(written_report, synthetic_explanation):
             assert len(s["extent_mm"][method]) == 2
     # winners [2, 2, 0, 1, 2, 2]: segment index 2 (id 7) won channels 0, 1, 4, 5.
     assert report["segments"][2]["winning_channels"] == [0, 1, 4, 5]
-    # The report equals the in-memory dict (apart from the figure list added on writing).
+    # This case's CT is no DICOM series: no DICOM objects, and a note says why.
+    assert report["files"]["dicom"] == []
+    dicom_notes = [n for n in report["notes"] if n.startswith("no DICOM objects written")]
+    assert len(dicom_notes) == 1 and "not a DICOM series" in dicom_notes[0]
+    # The report equals the in-memory dict, apart from what writing adds: the figure list and
+    # the note on the DICOM objects.
     again = synthetic_explanation.to_dict()
     again["files"]["figures"] = report["files"]["figures"]
+    again["notes"] += dicom_notes
     assert again == report
 
 
