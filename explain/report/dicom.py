@@ -174,7 +174,13 @@ def _segmentation(explanation, source, culprit_label):
 
 
 def _save(dataset, path):
-    """Write a DICOM file atomically (a temporary file beside it, then renamed)."""
+    """Write a DICOM file atomically (a temporary file beside it, then renamed).
+
+    Content Creator's Name is type 2 in the Content Identification macro (PS3.3 C.10.9):
+    present, empty here since software, not a person, made the object.
+    """
+    if "ContentCreatorName" not in dataset:
+        dataset.ContentCreatorName = ""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, name = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".dcm", dir=path.parent)
     os.close(fd)
