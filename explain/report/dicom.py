@@ -90,7 +90,7 @@ def _geometry(source, image):
     return dict(plane_positions=positions, plane_orientation=orientation, pixel_measures=measures)
 
 
-def quantise(values, *, signed):
+def _quantise(values, *, signed):
     """Map values to uint16 with zero exactly representable.
 
     Returns
@@ -127,7 +127,7 @@ def _parametric_map(explanation, source, method, volume, n):
 
     values = sitk.GetArrayViewFromImage(volume)
     signed = bool((values < 0).any())
-    stored, slope, intercept = quantise(values, signed=signed)
+    stored, slope, intercept = _quantise(values, signed=signed)
     unit_words = target_unit(explanation.target["label"])
     # UCUM annotations: "{...}" is a dimensionless unit with a name (UCUM 2.1, section 2.4).
     unit = CodedConcept(value=_UCUM.get(unit_words, "1"), scheme_designator="UCUM",
