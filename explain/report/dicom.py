@@ -54,9 +54,34 @@ class DicomOutput:
 
 
 def dicom_files(methods):
-    """File names of the DICOM objects, relative to the output folder (a dict)."""
+    """File names of the DICOM objects, relative to the output folder (a dict).
+
+    >>> dicom_files(["gradient"])["gradient"]
+    'overlays/dicom/map-gradient.dcm'
+    """
     return {**{m: f"{DICOM_FOLDER}/map-{m}.dcm" for m in methods},
             "segmentation": f"{DICOM_FOLDER}/{SEGMENTATION_NAME}"}
+
+
+#: Type 2 attributes of the Patient and General Study modules (DICOM PS3.3 C.7.1.1, C.7.2.1)
+#: that highdicom copies from the source: present but empty when a source slice lacks them.
+_TYPE2_COPIED = ("PatientName", "PatientID", "PatientBirthDate", "PatientSex", "StudyDate",
+                 "StudyTime", "ReferringPhysicianName", "StudyID", "AccessionNumber")
+
+
+def _source_headers(source):
+    """The source slices' headers, with any missing type 2 attribute added empty (copies)."""
+    import copy
+
+    headers = list(source.headers)
+    if all(k in ds for ds in headers for k in _TYPE2_COPIED):
+        return headers
+    headers = [copy.deepcopy(ds) for ds in headers]
+    for ds in headers:
+        for keyword in _TYPE2_COPIED:
+            if keyword not in ds:
+                setattr(ds, keyword, "")
+    return headers
 
 
 def _uid(explanation, source, *parts):
@@ -119,7 +144,7 @@ def _window(values, slope, intercept, *, signed):
     return 0.5 * (low_s + high_s), max(high_s - low_s, 2.0)
 
 
-def _parametric_map(explanation, source, method, volume, n):
+def _parametric_map(explanation, source, headers, method, volume, n):
     import highdicom as hd
     from highdicom.sr.coding import CodedConcept
 
@@ -142,7 +167,7 @@ def _parametric_map(explanation, source, method, volume, n):
     voi = hd.VOILUTTransformation(window_center=[center], window_width=[width],
                                   window_explanation=[f"{method} map"[:64]])
     return hd.pm.ParametricMap(
-        source_images=list(source.headers), pixel_array=stored,
+        source_images=headers, pixel_array=stored,
         series_instance_uid=_uid(explanation, source, "series", method),
         series_number=_SERIES_NUMBER + n, sop_instance_uid=_uid(explanation, source, "sop", method),
         instance_number=1, **_equipment(), contains_recognizable_visual_features=False,
@@ -151,7 +176,7 @@ def _parametric_map(explanation, source, method, volume, n):
         series_description=f"culprit-lens {method}"[:64], **_geometry(source, volume))
 
 
-def _segmentation(explanation, source, culprit_label):
+def _segmentation(explanation, source, headers, culprit_label):
     import highdicom as hd
     from pydicom.sr.codedict import codes
 
@@ -161,7 +186,7 @@ def _segmentation(explanation, source, culprit_label):
     algorithm = hd.AlgorithmIdentificationSequence(
         name="culprit-lens", version=__version__, family=codes.cid7162.ArtificialIntelligence)
     seg = hd.seg.Segmentation(
-        source_images=list(source.headers), pixel_array=masks,
+        source_images=headers, pixel_array=masks,
         segmentation_type=hd.seg.SegmentationTypeValues.BINARY,
         segment_descriptions=segment_descriptions(explanation, method, extent, algorithm),
         series_instance_uid=_uid(explanation, source, "series", "segmentation"),
@@ -238,10 +263,17 @@ def write_dicom(explanation, case, out_dir, *, volumes=None):
 
         volumes = overlay_volumes(explanation)
     out_dir, names = Path(out_dir), dicom_files(explanation.methods)
-    for n, method in enumerate(explanation.methods, 1):
-        _save(_parametric_map(explanation, source, method, volumes[method], n),
-              out_dir / names[method])
-    seg, notes = _segmentation(explanation, source, volumes["culprit"])
-    _save(seg, out_dir / names["segmentation"])
+    headers = _source_headers(source)
+    try:
+        objects = [(names[m], _parametric_map(explanation, source, headers, m, volumes[m], n))
+                   for n, m in enumerate(explanation.methods, 1)]
+        seg, notes = _segmentation(explanation, source, headers, volumes["culprit"])
+    except (AttributeError, KeyError, TypeError, ValueError) as exc:
+        raise InputError(
+            f"{source.folder}: cannot build DICOM objects on this series "
+            f"({type(exc).__name__}: {str(exc).splitlines()[0][:160]}); fix the series' "
+            "headers, or turn the DICOM output off (--no-dicom)") from None
+    for name, dataset in [*objects, (names["segmentation"], seg)]:
+        _save(dataset, out_dir / name)
     files = tuple(names[m] for m in explanation.methods) + (names["segmentation"],)
     return DicomOutput(files, tuple(notes), time.perf_counter() - start)

@@ -278,3 +278,22 @@ def test_not_dicom_writes_nothing_and_says_so(synthetic_explanation, tmp_path):
     result = write_dicom(synthetic_explanation, synthetic_explanation.case, tmp_path)
     assert result.files == () and not any(tmp_path.iterdir())
     assert "not a DICOM series" in result.notes[0]
+
+
+def test_missing_type2_patient_attributes_written_empty(synth, tmp_path):
+    # DICOM PS3.3 C.7.1.1: PatientID is type 2 (present, may be empty); a source slice
+    # without it still gets DICOM objects, with the attribute present and empty.
+    case = synth.make_case()
+    folder = tmp_path / "ct"
+    write_ct_series(case.image, folder, case_id=case.case_id, seed=0)
+    for path in folder.iterdir():
+        ds = pydicom.dcmread(path)
+        del ds.PatientID
+        ds.save_as(path)
+    image, source = read_volume(folder)
+    case = dataclasses.replace(case, image=image, dicom=source)
+    explanation = synth.make_explanation(case, methods=("integrated_gradients",))
+    result = write_dicom(explanation, case, tmp_path / "out")
+    for name in result.files:
+        assert pydicom.dcmread(tmp_path / "out" / name).PatientID == ""
+    assert "PatientID" not in source.headers[0]          # the source was not changed
