@@ -188,3 +188,13 @@ def test_manifest_series_uid_must_be_text(phantom_pair, tmp_path):
     bad.write_text(json.dumps(data))
     with pytest.raises(InputError, match="series_instance_uid"):
         load_case(bad)
+
+
+def test_cohort_as_dicom_reads_back(tmp_path):
+    from explain.phantom import write_cohort
+
+    table = write_cohort(tmp_path / "cohort", count=1, seed=5, spacing_mm=1.2,
+                         image_format="dicom")
+    case = load_case(tmp_path / "cohort" / "case-0000" / "case.json")
+    assert table.is_file() and case.dicom is not None
+    assert len(case.dicom.sop_instance_uids) == case.image.GetSize()[2]
