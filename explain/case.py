@@ -20,7 +20,7 @@ from .anatomy import check_segment_id, segment_info
 from .errors import InputError
 from .geometry.centerline import Centerline, distinct_rows
 from .grading import CATEGORIES
-from .io import read_image, same_geometry
+from .io import read_image, read_volume, same_geometry
 
 __all__ = ["CASE_FORMAT", "Lesion", "Reference", "Segment", "Case", "load_case", "read_centerline_csv"]
 
@@ -89,7 +89,11 @@ class Segment:
 
 @dataclass(frozen=True)
 class Case:
-    """A validated case; segments sorted by SCCT number."""
+    """A validated case; segments sorted by SCCT number.
+
+    ``dicom`` is the :class:`explain.dicom_in.DicomSource` of a DICOM image (its identifiers
+    for the DICOM output), None for an image file.
+    """
 
     case_id: str
     path: Path
@@ -97,6 +101,7 @@ class Case:
     segments: tuple
     reference: Reference | None
     notes: tuple = ()
+    dicom: object = field(default=None, repr=False)
 
     @property
     def segment_ids(self):
@@ -318,8 +323,21 @@ def load_case(path, *, ramus_territory="LCx", outside_tolerance_mm=2.0):
         Naming the file or field at fault and what to do.
     """
     path, data = _read_manifest(path)
-    image = read_image(path.parent / data["image"], field=f"{path}: image")
+    image, dicom = _read_case_image(path, data)
     segments, notes = _load_segments(path, data, image, ramus_territory=ramus_territory,
                                      outside_tolerance_mm=outside_tolerance_mm)
     reference = _load_reference(path, data, image, segments)
-    return Case(data["case_id"], path, image, segments, reference, tuple(notes))
+    notes = [*(dicom.notes if dicom is not None else ()), *notes]
+    return Case(data["case_id"], path, image, segments, reference, tuple(notes), dicom)
+
+
+# -- DICOM input: the optional manifest field series_instance_uid ---------------------------------
+
+def _read_case_image(path, data):
+    """The CT and, for a DICOM folder, its :class:`~explain.dicom_in.DicomSource`."""
+    series = data.get("series_instance_uid")
+    if series is not None and not isinstance(series, str):
+        raise InputError(f"{path}: field 'series_instance_uid' must be a string (a DICOM UID), "
+                         f"got {type(series).__name__}")
+    return read_volume(path.parent / data["image"], field=f"{path}: image",
+                       series_instance_uid=series)

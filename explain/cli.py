@@ -25,11 +25,13 @@ def _cmd_phantom(args):
                              "random cohort, not both")
         if args.count < 1:
             raise InputError(f"--count: expected a whole number >= 1, got {args.count}")
-        path = write_cohort(args.out, count=args.count, seed=args.seed, force=args.force)
+        path = write_cohort(args.out, count=args.count, seed=args.seed, force=args.force,
+                            image_format=args.image_format)
         print(f"wrote {args.count} phantom cases; cohort table: {path}")
         return 0
     lesions = [parse_lesion(text) for text in args.lesion]
-    path = write_phantom_case(args.out, seed=args.seed, lesions=lesions, force=args.force)
+    path = write_phantom_case(args.out, seed=args.seed, lesions=lesions, force=args.force,
+                              image_format=args.image_format)
     print(f"wrote phantom case: {path}")
     return 0
 
@@ -58,7 +60,8 @@ def _cmd_explain(args):
     model = load_model(args.model, weights=args.weights, grade_labels=labels)
     explanation = explain_case(model, case, progress=progress, quality=quality,
                                **_explain_options(args))
-    html = explanation.write(args.out, force=args.force, progress=progress)
+    html = explanation.write(args.out, force=args.force, progress=progress,
+                             dicom=not args.no_dicom)
     print(verdict(explanation.prediction))
     print(culprit_summary(explanation))
     print(f"report: {html}")
@@ -68,7 +71,8 @@ def _cmd_explain(args):
 def _cmd_demo(args):
     from .report.demo import run_demo
 
-    html = run_demo(args.out, seed=args.seed, force=args.force, quiet=args.quiet)
+    html = run_demo(args.out, seed=args.seed, force=args.force, quiet=args.quiet,
+                    image_format=args.image_format, dicom=not args.no_dicom)
     print(f"report: {html}")
     return 0
 
@@ -154,6 +158,16 @@ def _quality_option(args):
         settings["flag_thresholds"] = _flag_thresholds(args.flag_threshold)
     check_settings(**settings)
     return settings
+
+
+def _add_dicom_options(cmd, *, image_format):
+    if image_format:
+        cmd.add_argument("--image-format", choices=("nifti", "dicom"), default="nifti",
+                         help="write the phantom CT as image.nii.gz (default) or as a DICOM CT "
+                              "series in ct/ (invented identifiers)")
+    cmd.add_argument("--no-dicom", action="store_true",
+                     help="do not write overlays/dicom/ (written by default when the CT is a "
+                          "DICOM series)")
 
 
 def _grade_labels(text):
@@ -307,6 +321,7 @@ def build_parser():
     demo.add_argument("--seed", type=int, default=0, help="seed of the synthetic case (default 0)")
     demo.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     demo.add_argument("--quiet", action="store_true", help="no progress messages")
+    _add_dicom_options(demo, image_format=True)
     demo.set_defaults(run=_cmd_demo)
 
     exp = sub.add_parser("explain", help="explain one case with a model")
@@ -317,6 +332,7 @@ def build_parser():
     _add_quality_options(exp)
     exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     exp.add_argument("--quiet", action="store_true", help="no progress messages")
+    _add_dicom_options(exp, image_format=False)
     exp.set_defaults(run=_cmd_explain)
 
     _add_audit_parser(sub)
@@ -331,6 +347,9 @@ def build_parser():
     ph.add_argument("--count", type=int, help="write this many cases with random lesions and a "
                                               "cohort table instead of one case")
     ph.add_argument("--force", action="store_true", help="replace a non-empty output folder")
+    ph.add_argument("--image-format", choices=("nifti", "dicom"), default="nifti",
+                    help="the CT as image.nii.gz (default) or as a DICOM CT series in ct/, one "
+                         "file per slice, with invented identifiers (patient Phantom^Demo)")
     ph.set_defaults(run=_cmd_phantom)
     return parser
 

@@ -1,8 +1,8 @@
 """Images in and out (SimpleITK), and writes that never leave half a file behind.
 
 Supported inputs: NIfTI (``.nii``, ``.nii.gz``), NRRD (``.nrrd``), MetaImage (``.mha``, ``.mhd``),
-or a folder holding one DICOM CT series. DICOM stored values are rescaled to Hounsfield units by
-the reader (HU = stored value x RescaleSlope + RescaleIntercept, DICOM PS3.3 C.11.1).
+or a folder holding a DICOM CT series, read by :mod:`explain.dicom_in` (stored values rescaled to
+Hounsfield units, HU = stored value x RescaleSlope + RescaleIntercept, DICOM PS3.3 C.11.1).
 """
 
 from __future__ import annotations
@@ -21,6 +21,7 @@ from .errors import InputError
 __all__ = [
     "IMAGE_SUFFIXES",
     "read_image",
+    "read_volume",
     "write_image",
     "write_text",
     "atomic_output_dir",
@@ -39,34 +40,18 @@ def _suffix(path):
     return None
 
 
-def _read_dicom_folder(folder, field):
-    reader = sitk.ImageSeriesReader()
-    series = reader.GetGDCMSeriesIDs(str(folder))
-    if not series:
-        raise InputError(
-            f"{field}: the folder {folder} holds no DICOM series; point to a folder with one CT "
-            "series or to a NIfTI/NRRD/MetaImage file"
-        )
-    if len(series) > 1:
-        raise InputError(
-            f"{field}: the folder {folder} holds {len(series)} DICOM series "
-            f"({', '.join(series[:3])}...); keep one CT series per folder"
-        )
-    files = reader.GetGDCMSeriesFileNames(str(folder), series[0])
-    reader.SetFileNames(files)
-    return reader.Execute()
-
-
-def read_image(path, *, field="image"):
+def read_image(path, *, field="image", series_instance_uid=None):
     """Read a 3D CT volume as a float32 SimpleITK image in HU.
 
     Parameters
     ----------
     path : str or Path
-        An image file (``.nii``, ``.nii.gz``, ``.nrrd``, ``.mha``, ``.mhd``) or a folder holding one
+        An image file (``.nii``, ``.nii.gz``, ``.nrrd``, ``.mha``, ``.mhd``) or a folder holding a
         DICOM series.
     field : str
         Where the path came from, for error messages (e.g. ``"case.json: image"``).
+    series_instance_uid : str, optional
+        Which DICOM series of the folder to read (needed when it holds several).
 
     Returns
     -------
@@ -76,16 +61,36 @@ def read_image(path, *, field="image"):
     Raises
     ------
     InputError
-        Missing, unreadable, not 3D, not scalar, or containing NaN or infinite values.
+        Missing, unreadable, not 3D, not scalar, or containing NaN or infinite values; for
+        DICOM, see :func:`explain.dicom_in.read_dicom_series`.
     """
+    return read_volume(path, field=field, series_instance_uid=series_instance_uid)[0]
+
+
+def read_volume(path, *, field="image", series_instance_uid=None):
+    """:func:`read_image`, and the DICOM identifiers of the source when it is a DICOM folder.
+
+    Returns
+    -------
+    image : SimpleITK.Image
+    source : explain.dicom_in.DicomSource or None
+        None for an image file.
+    """
+    from .dicom_in import read_dicom_series
+
     path = Path(path)
+    source = None
     if not path.exists():
         raise InputError(f"{field}: {path} does not exist; check the path (relative paths are "
                          "taken from the manifest's folder)")
     try:
         if path.is_dir():
-            image = _read_dicom_folder(path, field)
+            image, source = read_dicom_series(path, field=field,
+                                              series_instance_uid=series_instance_uid)
         else:
+            if series_instance_uid is not None:
+                raise InputError(f"{field}: series_instance_uid is set but {path.name} is not a "
+                                 "DICOM folder; remove the field or point image to the folder")
             if _suffix(path) is None:
                 raise InputError(
                     f"{field}: {path.name} is not a supported image; use one of "
@@ -108,7 +113,7 @@ def read_image(path, *, field="image"):
         bad = int((~np.isfinite(values)).sum())
         raise InputError(f"{field}: {path} contains {bad} NaN or infinite voxels; fix or "
                          "replace them before explaining")
-    return image
+    return image, source
 
 
 def same_geometry(a, b, *, tolerance=1e-4):

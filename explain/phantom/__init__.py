@@ -10,7 +10,8 @@ Public names
 make_phantom, PhantomCase
     build.py: one case in memory (SimpleITK image, centerlines, reference, lesion mask).
 write_phantom_case
-    writer.py: one case folder (case.json, image.nii.gz, centerlines/seg<ID>.csv, lesion mask).
+    writer.py: one case folder (case.json, image.nii.gz, centerlines/seg<ID>.csv, lesion mask);
+    with ``image_format="dicom"`` the CT as a DICOM series (dicom_writer.py, invented identifiers).
 LesionSpec, parse_lesion, PlacedLesion
     lesions.py: a lesion to draw (``"ID:PERCENT[:calcified|soft]"``) and where it ended up.
 plan_cohort, iter_cohort, write_cohort, CohortEntry

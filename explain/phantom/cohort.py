@@ -25,7 +25,7 @@ from ..grading import cadrads_category
 from ..io import atomic_output_dir, write_text
 from .build import check_seed, make_phantom
 from .lesions import KINDS, LesionSpec
-from .writer import write_case_files
+from .writer import check_image_format, write_case_files
 
 __all__ = ["PATTERNS", "CohortEntry", "plan_cohort", "iter_cohort", "write_cohort",
            "COHORT_COLUMNS", "grade_segments"]
@@ -208,7 +208,7 @@ def _row(entry, case):
     }
 
 
-def write_cohort(out_dir, *, count, seed=0, force=False, **options):
+def write_cohort(out_dir, *, count, seed=0, force=False, image_format="nifti", **options):
     """Write ``count`` phantom cases, one folder each, and ``cohort.csv`` listing them.
 
     Parameters
@@ -219,6 +219,9 @@ def write_cohort(out_dir, *, count, seed=0, force=False, **options):
     seed : int
     force : bool
         Replace an existing non-empty ``out_dir`` once the new cohort is complete.
+    image_format : {"nifti", "dicom"}
+        Each case's CT as image.nii.gz or as a DICOM CT series (see
+        :func:`~explain.phantom.writer.write_phantom_case`).
     **options
         Passed to :func:`~explain.phantom.build.make_phantom`.
 
@@ -234,6 +237,7 @@ def write_cohort(out_dir, *, count, seed=0, force=False, **options):
     """
     out_dir = Path(out_dir)
     entries = plan_cohort(count=count, seed=seed)
+    check_image_format(image_format)
     with atomic_output_dir(out_dir, force=force) as temp:
         buffer = io.StringIO()
         writer = csv.DictWriter(buffer, fieldnames=COHORT_COLUMNS, lineterminator="\n")
@@ -243,7 +247,7 @@ def write_cohort(out_dir, *, count, seed=0, force=False, **options):
                                 **options)
             folder = temp / entry.case_id
             folder.mkdir()
-            write_case_files(case, folder)
+            write_case_files(case, folder, image_format=image_format)
             writer.writerow(_row(entry, case))
         write_text(buffer.getvalue(), temp / "cohort.csv")
     return out_dir / "cohort.csv"

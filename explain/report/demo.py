@@ -35,7 +35,8 @@ def progress_printer(quiet):
     return say
 
 
-def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None):
+def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None, image_format="nifti",
+             dicom=True):
     """Make a phantom case, explain it with ``builtin:reference`` and write the report.
 
     Parameters
@@ -50,6 +51,11 @@ def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None):
         No progress messages and no summary (progress goes to stderr, the summary to stdout).
     methods : sequence of str, optional
         Saliency methods; default :data:`explain.report.DEFAULT_METHODS`.
+    image_format : {"nifti", "dicom"}
+        The phantom's CT as NIfTI, or as a DICOM CT series: then the explanation also has its
+        DICOM objects in ``overlays/dicom/`` (unless ``dicom`` is false).
+    dicom : bool
+        Write the DICOM objects of a DICOM case.
 
     Returns
     -------
@@ -68,7 +74,8 @@ def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None):
     with atomic_output_dir(out_dir, force=force) as staging:
         if say:
             say(f"making phantom case (seed {seed}, lesion {', '.join(DEMO_LESIONS)})")
-        manifest = write_phantom_case(staging / "case", seed=seed, lesions=list(DEMO_LESIONS))
+        manifest = write_phantom_case(staging / "case", seed=seed, lesions=list(DEMO_LESIONS),
+                                      image_format=image_format)
         case = load_case(manifest)
         # The report names the case where it will be, not where it was built.
         case = dataclasses.replace(case, path=out_dir / "case" / "case.json")
@@ -76,7 +83,7 @@ def run_demo(out_dir, *, seed=0, force=False, quiet=False, methods=None):
             say("loading the bundled reference model")
         model = load_model("builtin:reference")
         explanation = explain_case(model, case, methods=methods, seed=seed, progress=say)
-        write_into(explanation, staging, progress=say)
+        write_into(explanation, staging, progress=say, dicom=dicom)
     if not quiet:
         _summary(explanation)
     return out_dir / "report.html"

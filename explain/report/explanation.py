@@ -179,17 +179,19 @@ class Explanation:
 
         return explanation_dict(self)
 
-    def write(self, out_dir, *, force=False, progress=None):
+    def write(self, out_dir, *, force=False, progress=None, dicom=True):
         """Write every output file into ``out_dir``; return the path of its report.html.
 
         The folder is built beside ``out_dir`` and moved into place when complete. An existing
         non-empty ``out_dir`` is refused (:class:`~explain.errors.InputError`) unless ``force``.
+        With ``dicom`` (the default) a case read from a DICOM series also gets its DICOM
+        objects in ``overlays/dicom/`` (:func:`explain.report.write_dicom`).
         """
         from ..io import atomic_output_dir
         from .files import write_into
 
         with atomic_output_dir(out_dir, force=force) as staging:
-            write_into(self, staging, progress=progress)
+            write_into(self, staging, progress=progress, dicom=dicom)
         return Path(out_dir) / "report.html"
 
 

@@ -13,7 +13,7 @@ from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
 from .tables import segments_csv
 
-__all__ = ["check_out_dir", "write_into", "write_overlays", "write_attributions"]
+__all__ = ["check_out_dir", "write_into", "write_overlays", "overlay_volumes", "write_attributions"]
 
 
 def check_out_dir(out_dir, *, force=False, field="--out"):
@@ -38,18 +38,24 @@ def write_attributions(explanation, path):
     return path
 
 
-def write_overlays(explanation, folder):
-    """overlays/<method>.nii.gz (maps in the CT's geometry) and overlays/culprit.nii.gz."""
+def overlay_volumes(explanation):
+    """The overlays on the CT's grid: method -> float32 map, ``"culprit"`` -> uint8 lumen label."""
     e = explanation
-    folder = Path(folder)
     image = e.case.image
-    names = overlay_files(e.methods)
-    for method in e.methods:
-        volume = overlay(list(e.maps[method]), e.sections.sections, like=image)
-        write_image(volume, folder / names[method])
+    volumes = {m: overlay(list(e.maps[m]), e.sections.sections, like=image) for m in e.methods}
     seg = e.case.segment(e.culprit.id)
-    label = lumen_label(image, seg.centerline.points_mm, seg.radius_mm, label=e.culprit.id)
-    write_image(label, folder / names["culprit"])
+    volumes["culprit"] = lumen_label(image, seg.centerline.points_mm, seg.radius_mm,
+                                     label=e.culprit.id)
+    return volumes
+
+
+def write_overlays(explanation, folder, *, volumes=None):
+    """overlays/<method>.nii.gz (maps in the CT's geometry) and overlays/culprit.nii.gz."""
+    folder = Path(folder)
+    names = overlay_files(explanation.methods)
+    volumes = overlay_volumes(explanation) if volumes is None else volumes
+    for key, name in names.items():
+        write_image(volumes[key], folder / name)
     return names
 
 
@@ -67,8 +73,19 @@ def _quality_figures(explanation, folder):
     return [f"figures/{FAITHFULNESS_FIGURE}"]
 
 
-def write_into(explanation, folder, *, progress=None):
-    """Write report.json, segments.csv, attributions.npz, overlays, figures and report.html.
+def _dicom_objects(explanation, folder, volumes, dicom, progress):
+    """Write overlays/dicom/ when asked and possible; the DicomOutput (files and notes)."""
+    from .dicom import DicomOutput, write_dicom
+
+    if not dicom:
+        return DicomOutput((), ("DICOM objects not written: turned off (--no-dicom)",))
+    _say(progress, "writing DICOM objects (parametric maps, segmentation)")
+    return write_dicom(explanation, explanation.case, folder, volumes=volumes)
+
+
+def write_into(explanation, folder, *, progress=None, dicom=True):
+    """Write report.json, segments.csv, attributions.npz, overlays, figures and report.html,
+    and with ``dicom`` the DICOM objects of a DICOM case (:mod:`explain.report.dicom`).
 
     Returns
     -------
@@ -77,12 +94,15 @@ def write_into(explanation, folder, *, progress=None):
     """
     folder = Path(folder)
     _say(progress, "writing overlays in the CT's geometry")
-    write_overlays(explanation, folder)
+    volumes = overlay_volumes(explanation)
+    write_overlays(explanation, folder, volumes=volumes)
+    written = _dicom_objects(explanation, folder, volumes, dicom, progress)
+    del volumes
     write_attributions(explanation, folder / "attributions.npz")
     _say(progress, "drawing figures")
     figures = write_figures(explanation, folder / "figures")
     figures += _quality_figures(explanation, folder / "figures")
-    report = explanation_dict(explanation, figures=figures)
+    report = explanation_dict(explanation, figures=figures, dicom=written)
     write_text(dumps(report), folder / "report.json")
     write_text(segments_csv(explanation), folder / "segments.csv")
     _say(progress, "writing report.html")

@@ -154,7 +154,7 @@ def report_html(report, images):
     notes = "".join(f"<li>{_e(n)}</li>" for n in report.get("notes", []))
     files = report["files"]
     file_list = [files["report"], files["table"], files["attributions"],
-                 *files["overlays"].values(), *files["figures"]]
+                 *files["overlays"].values(), *files.get("dicom", []), *files["figures"]]
     model = report["model"]
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8">

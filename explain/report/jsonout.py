@@ -87,8 +87,10 @@ def doubts_of(explanation):
                           e.target["value_none"], fraction=low_margin_fraction(e))
 
 
-def explanation_dict(explanation, *, figures=()):
-    """The report as a dict; ``figures`` lists the figure files written (relative paths)."""
+def explanation_dict(explanation, *, figures=(), dicom=None):
+    """The report as a dict; ``figures`` lists the figure files written (relative paths),
+    ``dicom`` is the :class:`~explain.report.dicom.DicomOutput` of the DICOM objects, if any
+    were asked for (its files are listed, its notes added)."""
     e = explanation
     culprit = e.culprit
     where = {m: {**(peak_dict(culprit.locations[m]) or {"arc_mm": None}),
@@ -123,9 +125,10 @@ def explanation_dict(explanation, *, figures=()):
                                                    low_margin=low_margin_fraction(e))},
         "segments": segments,
         "reference": _reference_dict(getattr(e.case, "reference", None)),
-        "files": {**FILES, "overlays": overlay_files(e.methods), "figures": list(figures)},
+        "files": {**FILES, "overlays": overlay_files(e.methods), "figures": list(figures),
+                  "dicom": [] if dicom is None else list(dicom.files)},
         "cautions": list(e.cautions),
-        "notes": list(e.notes),
+        "notes": list(e.notes) + ([] if dicom is None else list(dicom.notes)),
     }
     if getattr(e, "quality", None) is not None:
         out["quality"] = e.quality.to_dict()

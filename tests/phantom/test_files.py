@@ -123,7 +123,7 @@ def test_refuses_a_non_empty_folder_and_leaves_it_alone(tmp_path):
 
 
 def test_an_error_while_writing_leaves_nothing_behind(tmp_path, monkeypatch):
-    def broken(case, folder):
+    def broken(case, folder, **options):
         (folder / "image.nii.gz").write_bytes(b"half")
         raise OSError("disk full")
 

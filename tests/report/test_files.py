@@ -51,9 +51,15 @@ def test_report_json_fields(written_report, synthetic_explanation):
             assert len(s["extent_mm"][method]) == 2
     # winners [2, 2, 0, 1, 2, 2]: segment index 2 (id 7) won channels 0, 1, 4, 5.
     assert report["segments"][2]["winning_channels"] == [0, 1, 4, 5]
-    # The written report is the in-memory dict (apart from the figure list added on writing)...
+    # This case's CT is no DICOM series: no DICOM objects, and a note says why.
+    assert report["files"]["dicom"] == []
+    dicom_notes = [n for n in report["notes"] if n.startswith("no DICOM objects written")]
+    assert len(dicom_notes) == 1 and "not a DICOM series" in dicom_notes[0]
+    # The report equals the in-memory dict, apart from what writing adds: the figure list and
+    # the note on the DICOM objects.
     again = synthetic_explanation.to_dict()
     again["files"]["figures"] = report["files"]["figures"]
+    again["notes"] += dicom_notes
     assert again == report
     # ... and both hold what tests/report/conftest.py put in, written out here by hand.
     _check_against_the_hand_made_inputs(report)
@@ -96,11 +102,12 @@ def _check_against_the_hand_made_inputs(report):
     files.pop("figures")
     assert files == {
         "report": "report.json", "table": "segments.csv", "attributions": "attributions.npz",
-        "html": "report.html",
+        "html": "report.html", "dicom": [],
         "overlays": {"integrated_gradients": "overlays/integrated_gradients.nii.gz",
                      "occlusion": "overlays/occlusion.nii.gz",
                      "culprit": "overlays/culprit.nii.gz"}}
-    assert report["notes"] == []
+    # the one note: no DICOM objects for a case whose CT is no DICOM series
+    assert len(report["notes"]) == 1 and report["notes"][0].startswith("no DICOM objects written")
 
 
 def test_peaks_where_the_hand_made_maps_peak(synthetic_explanation, synth):
