@@ -194,11 +194,11 @@ def _say(progress, message):
 
 
 def _check_methods(methods):
-    """(methods, named): the methods to run, and whether the user named them."""
+    """The methods to run: the checked names, or :data:`DEFAULT_METHODS` for None."""
     from ..attribution import METHODS
 
     if methods is None:
-        return DEFAULT_METHODS, False
+        return DEFAULT_METHODS
     if isinstance(methods, str):
         methods = tuple(m.strip() for m in methods.split(",") if m.strip())
     methods = tuple(methods)
@@ -211,7 +211,7 @@ def _check_methods(methods):
                          + ", ".join(METHODS))
     if len(set(methods)) != len(methods):
         raise InputError(f"methods: {list(methods)} names a method twice; name each once")
-    return methods, True
+    return methods
 
 
 def method_settings(method, shape, *, seed):
@@ -309,7 +309,8 @@ def _check_arguments(model, methods, seed, baseline_hu):
         raise InputError(
             f"model: expected a wrapped model (explain.load_model or explain.wrap_model), got "
             f"{type(model).__name__}; wrap a torch module with explain.wrap_model(module)")
-    methods, named = _check_methods(methods)
+    named = methods is not None
+    methods = _check_methods(methods)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
         raise InputError(f"seed: expected an integer, got {seed!r}")
     try:
