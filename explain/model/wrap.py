@@ -234,8 +234,9 @@ class WrappedModel:
         enc = self.module.encode_segments
         with torch.no_grad():
             feats = feats.detach()
-            longer = enc(extra_segment(x.detach()))
-            self._check_shape(longer, extra_segment(x))
+            more = extra_segment(x.detach())
+            longer = enc(more)
+            self._check_shape(longer, more)
             if not close(longer[:, : x.shape[1]], feats):
                 if not close(enc(x.detach()), feats):
                     refuse_unrepeatable(self.name, "encode_segments")
@@ -417,7 +418,10 @@ def wrap_model(module, *, spec=None, grade_labels=None, name=None):
     if not isinstance(module, torch.nn.Module):
         raise ModelError(f"wrap_model: expected a torch.nn.Module, got {type(module).__name__}")
     label = name or type(module).__name__
-    spec = _module_spec(module, label) if spec is None else CrossSectionSpec.coerce(spec, where="spec")
+    if spec is None:
+        spec = _module_spec(module, label)
+    else:
+        spec = CrossSectionSpec.coerce(spec, where="spec")
     if grade_labels is None:
         grade_labels = _module_labels(module, label)
     if grade_labels is not None:

@@ -332,10 +332,10 @@ def _run_model(model, x, notes):
         except (RuntimeError, ValueError, TypeError, IndexError) as exc:
             conflict = [n for n in notes if n.startswith("sampling: ")]
             hint = f" ({conflict[0]})" if conflict else ""
+            text = str(exc).strip()
+            cause = text.splitlines()[0] if text else type(exc).__name__
             raise ModelError(f"model {getattr(model, 'name', '?')!r} failed on the case's "
-                             f"cross-sections {tuple(x.shape)}{hint}: "
-                             f"{str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__}"
-                             ) from None
+                             f"cross-sections {tuple(x.shape)}{hint}: {cause}") from None
 
 
 def _methods_to_run(model, x, methods, named, stack_shape, *, gradcam_layer, seed, notes):
@@ -365,8 +365,9 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         (a method named here that does not apply is an error).
     target : int or str
         Output column, ``"predicted"``, ``"expected"``, ``"auto"``, or ``"key:..."`` /
-        ``"index:..."`` for dict / tuple and list outputs. ``"auto"``: the expected CAD-RADS category when the model's grade labels are
-        CAD-RADS categories, else the predicted column (see :mod:`explain.model.targets`).
+        ``"index:..."`` for dict / tuple and list outputs. ``"auto"``: the expected CAD-RADS
+        category when the model's grade labels are CAD-RADS categories, else the predicted
+        column (see :mod:`explain.model.targets` and docs/your-model.md).
     points, size, pixel_mm : int, int, float, optional
         Cross-section sampling; default the model's spec (explicit values win, and a value that
         conflicts with the spec is noted).
@@ -393,7 +394,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     from .saliency import saliency_maps
 
     methods, named, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
-    notes = list(case.notes) + list(getattr(model, "notes", ()))
+    notes = []  # this run's notes; the case's and the model's (read at the end) come first
     sampling, model = _sampling(model, points, size, pixel_mm, notes)
 
     _say(progress, f"sampling cross-sections of {len(case.segments)} segments "
@@ -444,7 +445,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         target={"requested": settings["target"], "label": label, "value": target_value,
                 "value_all": float(trace.value_all), "value_none": float(trace.value_empty)},
         segments=segments, culprit_index=int(trace.culprit), margin=float(trace.margin),
-        maps=maps, notes=tuple(notes),
+        maps=maps, notes=tuple(case.notes) + tuple(getattr(model, "notes", ())) + tuple(notes),
     )
 
 

@@ -194,3 +194,17 @@ def test_tuple_output_split_reproduces_forward():
     out = w.head(w.encode(x).max(dim=1).values)
     torch.testing.assert_close(out[0], w.forward(x)[0])
     torch.testing.assert_close(out[1][0], w.forward(x)[1][0])
+
+
+def test_head_that_cannot_broadcast_is_replayed_per_patient_with_a_note():
+    class UsesBatch(torch.nn.Module):
+        def forward(self, x):
+            p = x.mean(dim=(2, 3, 4))[..., None].amax(dim=1)    # (B, 1)
+            return torch.cat([p, -p], dim=1).reshape(x.shape[0], -1)  # needs the real batch
+
+    w = wrap_model(UsesBatch())
+    x = _x(b=2)
+    out = w.head(w.encode(x).max(dim=1).values)
+    torch.testing.assert_close(out, UsesBatch()(x))
+    assert any(n.startswith("head replay: one dummy stack could not stand for 2 patients")
+               for n in w.notes)
