@@ -68,11 +68,11 @@ __all__ = ["WrappedModel", "wrap_model", "weights_hash"]
 
 _SCRIPT_HELP = (
     "The max inside a TorchScript model cannot be seen from Python: give the module the two "
-    "methods and export them with @torch.jit.export before scripting or tracing, as in "
+    "methods and export them with @torch.jit.export before scripting, as in "
     "(1) `@torch.jit.export def encode_segments(self, x): return self.features(x)  # (B, S, C)` "
     "(2) `@torch.jit.export def head(self, pooled): return self.classifier(pooled)` "
     "(3) `def forward(self, x): return self.head(self.encode_segments(x).max(dim=1).values)`; "
-    "see docs/your-model.md"
+    "to trace, trace all three with torch.jit.trace_module; see docs/your-model.md"
 )
 
 

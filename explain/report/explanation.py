@@ -331,7 +331,8 @@ def _run_model(model, x, notes):
             return model.forward(x)
         except (RuntimeError, ValueError, TypeError, IndexError) as exc:
             conflict = [n for n in notes if n.startswith("sampling: ")]
-            hint = f" ({conflict[0]})" if conflict else ""
+            hint = (f" ({conflict[0]}; leave the option out to sample as the model's spec says)"
+                    if conflict else "")
             text = str(exc).strip()
             cause = text.splitlines()[0] if text else type(exc).__name__
             raise ModelError(f"model {getattr(model, 'name', '?')!r} failed on the case's "

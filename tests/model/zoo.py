@@ -270,6 +270,9 @@ def traced(module, x, *, protocol=False):
 #: ("refused", text the one-line error must contain).
 OUTCOMES = {
     "FoldedChannels2D": ("factory", [], "plain"),
+    "FoldedChannels2D-points": ("factory", ["--points", "5"], (
+        "refused", "--points (points) 5 conflicts with the model's spec (6); the value you gave "
+                   "wins")),
     "Conv3dHeadModule": ("factory", [], "plain"),
     "SequentialPermutePool": ("factory", [], "plain"),
     "DictHeads": ("factory", ["--target", "grade:expected", "--grade-labels",
