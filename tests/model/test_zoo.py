@@ -91,5 +91,9 @@ def test_style_explains_or_is_refused_in_one_line(place, name, capsys):
     for method in skipped:
         assert any(n.startswith(f"{method}: skipped") for n in report["notes"]), report["notes"]
     assert {"integrated_gradients", "occlusion"} <= set(report["settings"]["methods"])
+    if "gradcam" in report["settings"]["methods"]:
+        # every zoo model's Grad-CAM layer follows a chain of nn convolutions, so its cells are
+        # placed from the layers (convolution arithmetic), not by the resize convention
+        assert report["settings"]["method_options"]["gradcam"]["geometry_from"] == "layers"
     if name in NOTES:
         assert any(NOTES[name] in n for n in report["notes"]), report["notes"]
