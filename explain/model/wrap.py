@@ -24,8 +24,13 @@ Then ``encode`` runs the forward in an "encode" mode that stops at that reductio
 private exception carrying its input, still attached to the autograd graph, reordered to
 ``(B, S, C)``; ``head`` runs the forward on a small dummy input in a "head" mode that returns the
 given pooled tensor in place of the reduction's output (the part before the max runs without
-autograd and without the modules' forward hooks, and its result is thrown away). The reduction is recognised by its call order, so the
-model's control flow must not depend on the data.
+autograd and without the modules' forward hooks, and its result is thrown away). The reduction
+is recognised by its call order, so the model's control flow must not depend on the data. The
+machinery lives in :mod:`explain.model._split`.
+
+Only the modules' own Python code is seen: a max inside TorchScript is not, so a scripted or
+traced model must carry the protocol methods (exported with ``@torch.jit.export``); the error
+says so with an example.
 
 Checks, on both paths
 ---------------------
@@ -42,6 +47,8 @@ What is assumed, and said in :attr:`WrappedModel.notes`
 - Only two callables named ``encode_segments`` and ``head`` together make the protocol; a lone
   one (e.g. a patient MLP kept as a submodule ``head``) is not used, the model is wrapped
   automatically, and a note says so.
+- When the part after the max cannot be replayed for several patients from one dummy stack
+  (it uses the batch size, say), it is replayed with one dummy stack per patient, with a note.
 
 Ties
 ----
@@ -54,7 +61,6 @@ protocol path and the wrapped ``forward`` use ``torch.max``.
 from __future__ import annotations
 
 import hashlib
-
 from collections import OrderedDict
 
 import torch
