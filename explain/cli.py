@@ -59,7 +59,7 @@ def _cmd_explain(args):
 
     model = load_model(args.model, weights=args.weights, grade_labels=labels)
     explanation = explain_case(model, case, progress=progress, quality=quality,
-                               **_explain_options(args))
+                               gradcam_layer=args.gradcam_layer, **_explain_options(args))
     html = explanation.write(args.out, force=args.force, progress=progress,
                              dicom=not args.no_dicom)
     print(verdict(explanation.prediction))
@@ -97,15 +97,23 @@ def _methods(text):
 
 def _add_explain_options(cmd):
     cmd.add_argument("--methods", type=_methods, default=None,
-                     help="comma-separated saliency methods (default: the report's defaults)")
+                     help="comma-separated saliency methods (default: integrated_gradients, "
+                          "occlusion and gradcam; one that does not apply to the model is "
+                          "skipped with the reason in the report's notes, while a method named "
+                          "here that does not apply is an error)")
     cmd.add_argument("--target", default="auto",
-                     help="output column index, 'predicted', 'expected', 'auto', or KEY[:INDEX] "
-                          "for dict outputs (default auto: the expected CAD-RADS category when "
-                          "the model's grade labels are CAD-RADS categories, else predicted: "
-                          "the column with the top score)")
-    cmd.add_argument("--points", type=int, help="cross-sections per segment (default: the model's)")
-    cmd.add_argument("--size", type=int, help="cross-section size in pixels (default: the model's)")
-    cmd.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm")
+                     help="output column index, 'predicted', 'expected', 'auto', or KEY:WHAT "
+                          "for dict outputs and INDEX:WHAT for tuple or list outputs (e.g. "
+                          "grade:expected, 0:3); default auto: the expected CAD-RADS category "
+                          "when the model's grade labels are CAD-RADS categories, else "
+                          "predicted: the column with the top score")
+    cmd.add_argument("--points", type=int,
+                     help="cross-sections per segment (default: the model's spec; a value that "
+                          "conflicts with it wins, and the report's notes say so)")
+    cmd.add_argument("--size", type=int, help="cross-section size in pixels (default: the "
+                                              "model's spec)")
+    cmd.add_argument("--pixel-mm", type=float, help="pixel spacing of cross-sections, mm "
+                                                    "(default: the model's spec)")
     cmd.add_argument("--baseline-hu", type=float, default=0.0,
                      help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
     cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
@@ -182,7 +190,10 @@ def _grade_labels(text):
 
 def _add_model_options(cmd):
     cmd.add_argument("--model", required=True,
-                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY")
+                     help="builtin:reference, a TorchScript file, or FILE.py:FACTORY. A sidecar "
+                          "file beside it, <model without suffix>.spec.json (e.g. net.spec.json "
+                          "for net.ts or net.py:build), may give {\"points\", \"size\", "
+                          "\"pixel_mm\", \"grade_labels\"}; see docs/your-model.md")
     cmd.add_argument("--weights", help="state-dict file for a FILE.py:FACTORY model")
     cmd.add_argument("--grade-labels", metavar="L0,L1,...",
                      help="label of each output column, e.g. 0,1,2,3,4A,4B,5; wins over the "
@@ -329,6 +340,10 @@ def build_parser():
     _add_model_options(exp)
     exp.add_argument("--out", required=True, help="output folder (must be new or empty)")
     _add_explain_options(exp)
+    exp.add_argument("--gradcam-layer", metavar="NAME",
+                     help="dotted name of the Grad-CAM layer, e.g. encoder.3 (default: the "
+                          "module's cam_layer, else its last convolution); its stride and offset "
+                          "are worked out from the model's layers where they allow it")
     _add_quality_options(exp)
     exp.add_argument("--force", action="store_true", help="replace a non-empty output folder")
     exp.add_argument("--quiet", action="store_true", help="no progress messages")

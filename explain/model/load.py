@@ -48,6 +48,15 @@ def load_weights(module, weights):
     return module
 
 
+def _cause(exc, limit=300):
+    """``"Class: message"`` on one line (its lines joined, cut at ``limit`` characters): the
+    cause a one-line error can carry."""
+    text = " ".join(line.strip() for line in str(exc).splitlines() if line.strip())
+    if len(text) > limit:
+        text = text[: limit - 3].rstrip() + "..."
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
 def _from_factory(text):
     file_part, _, factory = text.rpartition(":")
     path = Path(file_part)
@@ -60,14 +69,14 @@ def _from_factory(text):
     try:
         spec.loader.exec_module(module)
     except Exception as exc:  # noqa: BLE001 - the user's file failed to import
-        raise ModelError(f"model {text!r}: importing {path} failed: {exc!r}") from None
+        raise ModelError(f"model {text!r}: importing {path} failed: {_cause(exc)}") from None
     fn = getattr(module, factory, None)
     if fn is None or not callable(fn):
         raise InputError(f"model {text!r}: {path} has no callable {factory!r}")
     try:
         net = fn()
     except Exception as exc:  # noqa: BLE001
-        raise ModelError(f"model {text!r}: calling {factory}() failed: {exc!r}") from None
+        raise ModelError(f"model {text!r}: calling {factory}() failed: {_cause(exc)}") from None
     if not isinstance(net, torch.nn.Module):
         raise ModelError(f"model {text!r}: {factory}() returned {type(net).__name__}, not a torch.nn.Module")
     return net, path
@@ -128,9 +137,9 @@ def load_model(model, *, weights=None, spec=None, grade_labels=None, name=None):
             )
         try:
             net = torch.jit.load(str(path), map_location="cpu")
-        except Exception as exc:  # noqa: BLE001
+        except Exception as exc:  # noqa: BLE001 - any failure means the file is not usable
             raise ModelError(
-                f"model {path}: not a TorchScript file ({exc.__class__.__name__}); save one with "
+                f"model {path}: not a TorchScript file ({_cause(exc)}); save one with "
                 "torch.jit.save(torch.jit.script(model), path), or use FILE.py:FACTORY with "
                 "--weights for a state_dict"
             ) from None

@@ -1,7 +1,7 @@
 """Which number of a model's output an explanation explains.
 
-A model returns a ``(B, K)`` tensor or a dict of such tensors. A target names one scalar per
-patient in it:
+A model returns a ``(B, K)`` tensor, or a dict, tuple or list of such tensors (multitask heads).
+A target names one scalar per patient in it:
 
 - an ``int`` column index;
 - ``"predicted"``: the arg-max column, fixed at the patient being explained (so a perturbation
@@ -15,8 +15,11 @@ patient in it:
   expected category, but it can lower the logit of the predicted column 2, so for a model that
   under-grades, the predicted column names the wrong segment. The expected category also has a
   unit (CAD-RADS categories), which segment contributions then share;
-- for dict outputs ``"key"`` (a one-column entry, or the grade entry), ``"key:3"``,
-  ``"key:predicted"`` or ``"key:expected"``.
+- for dict outputs ``"key"`` (a one-column entry), ``"key:3"``, ``"key:predicted"``,
+  ``"key:expected"`` or ``"key:auto"``; for tuple and list outputs the same with the entry's
+  index, ``"0:3"``, ``"1:expected"``... A dict, tuple or list with one entry needs no key (a
+  note says which entry was used, see :func:`target_note`); with several, naming none is an
+  error whose example names a real entry of the model's output.
 """
 
 from __future__ import annotations
@@ -28,7 +31,7 @@ import torch
 from ..errors import InputError, ModelError
 from ..grading import CATEGORIES
 
-__all__ = ["Target", "resolve_target"]
+__all__ = ["Target", "output_entry", "resolve_target", "target_note"]
 
 
 @dataclass(frozen=True)
@@ -38,7 +41,7 @@ class Target:
     Calling it on a model output gives a ``(B,)`` tensor.
     """
 
-    key: str | None
+    key: str | int | None  # dict key, or entry index of a tuple/list output
     index: int | None
     ranks: tuple[tuple[int, int], ...] | None = None  # (column, rank) pairs for "expected"
 
@@ -49,7 +52,7 @@ class Target:
         return what if self.key is None else f"{self.key}:{what}"
 
     def __call__(self, output):
-        out = _entry(output, self.key)
+        out = output_entry(output, self.key)
         if out.ndim == 1:
             out = out[:, None]
         if self.index is not None:
@@ -59,15 +62,29 @@ class Target:
         return (torch.softmax(out[:, cols], dim=1) * ranks).sum(dim=1)
 
 
-def _entry(output, key):
-    if isinstance(output, dict):
+def _keys(output):
+    """The entries of a dict, tuple or list output, in the model's own order."""
+    return list(output) if isinstance(output, dict) else list(range(len(output)))
+
+
+def _example(output):
+    first = _keys(output)[0]
+    return f"'{first}:0' or '{first}:expected'"
+
+
+def output_entry(output, key):
+    """The tensor of entry ``key`` of a model output (the output itself when ``key`` is None)."""
+    if isinstance(output, (dict, tuple, list)):
+        if not len(output):
+            raise ModelError("model output: an empty dict, tuple or list; nothing to explain")
         if key is None:
-            raise ModelError("the model returns a dict: name the entry in the target, e.g. 'grade:2'")
-        return output[key]
+            raise ModelError(f"the model returns a {type(output).__name__} with entries "
+                             f"{_keys(output)}: name one in the target, e.g. {_example(output)}")
+        output = output[key]
     if not isinstance(output, torch.Tensor):
         raise ModelError(
-            f"model output: expected a (B, K) tensor or a dict of tensors, got {type(output).__name__}"
-        )
+            f"model output{'' if key is None else f' entry {key!r}'}: expected a (B, K) tensor "
+            f"or a dict, tuple or list of them, got {type(output).__name__}")
     return output
 
 
@@ -98,7 +115,7 @@ def _grade_ranks(n_columns, grade_labels):
 
 
 def _one(output, key, what, grade_labels, label):
-    out = _entry(output, key)
+    out = output_entry(output, key)
     if out.ndim not in (1, 2):
         raise ModelError(f"model output {label}: expected shape (B, K), got {tuple(out.shape)}")
     k = 1 if out.ndim == 1 else out.shape[1]
@@ -157,19 +174,46 @@ def resolve_target(output, target, *, grade_labels=None):
     """
     if isinstance(target, Target):
         return target
-    if isinstance(output, dict):
-        if isinstance(target, str) and ":" in target:
-            key, what = target.split(":", 1)
-        elif isinstance(target, str) and target in output:
-            key, what = target, None
-        elif len(output) == 1:
-            key, what = next(iter(output)), target
-        else:
-            raise InputError(
-                f"target {target!r}: the model returns a dict with keys {sorted(output)}; "
-                "name one, e.g. 'key:0' or 'key:expected'"
-            )
-        if key not in output:
-            raise InputError(f"target {target!r}: no output entry {key!r}; have {sorted(output)}")
+    if isinstance(output, (dict, tuple, list)):
+        key, what = _split_key(output, target)
         return _one(output, key, what, grade_labels, str(target))
     return _one(output, None, target, grade_labels, str(target))
+
+
+def _split_key(output, target):
+    """(entry key, what remains of the target) for a dict, tuple or list output."""
+    keys = _keys(output)
+    if not keys:
+        raise ModelError("model output: an empty dict, tuple or list; nothing to explain")
+    name = type(output).__name__
+    if isinstance(target, str) and ":" in target:
+        key, what = target.split(":", 1)
+        if not isinstance(output, dict):
+            try:
+                key = int(key)
+            except ValueError:
+                raise InputError(f"target {target!r}: the model returns a {name} of "
+                                 f"{len(keys)} entries; name one by its index, e.g. "
+                                 f"{_example(output)}") from None
+    elif isinstance(output, dict) and isinstance(target, str) and target in output:
+        key, what = target, None
+    elif len(keys) == 1:
+        key, what = keys[0], target
+    else:
+        raise InputError(
+            f"target {target!r}: the model returns a {name} with entries {keys}; name one, "
+            f"e.g. --target {_example(output)}")
+    if key not in keys:
+        raise InputError(f"target {target!r}: no output entry {key!r}; have {keys}")
+    return key, what
+
+
+def target_note(output, target, resolved):
+    """A note saying which entry was explained when the target named none, else None."""
+    if not isinstance(output, (dict, tuple, list)) or resolved.key is None:
+        return None
+    named = isinstance(target, str) and (":" in target or target == resolved.key)
+    if named or isinstance(target, Target):
+        return None
+    return (f"target: the model returns a {type(output).__name__} with the one entry "
+            f"{resolved.key!r}; it was explained as target {target!r}")

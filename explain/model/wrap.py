@@ -24,8 +24,31 @@ Then ``encode`` runs the forward in an "encode" mode that stops at that reductio
 private exception carrying its input, still attached to the autograd graph, reordered to
 ``(B, S, C)``; ``head`` runs the forward on a small dummy input in a "head" mode that returns the
 given pooled tensor in place of the reduction's output (the part before the max runs without
-autograd and without the modules' forward hooks, and its result is thrown away). The reduction is recognised by its call order, so the
-model's control flow must not depend on the data.
+autograd and without the modules' forward hooks, and its result is thrown away). The reduction
+is recognised by its call order, so the model's control flow must not depend on the data. The
+machinery lives in :mod:`explain.model._split`.
+
+Only the modules' own Python code is seen: a max inside TorchScript is not, so a scripted or
+traced model must carry the protocol methods (exported with ``@torch.jit.export``); the error
+says so with an example.
+
+Checks, on both paths
+---------------------
+On the first call, the model is checked as :mod:`explain.model.checks` describes: repeatable
+passes, and segments encoded independently (one extra encoder pass on S + 1 segments for a
+protocol model; the second detection pass for a plain one).
+
+What is assumed, and said in :attr:`WrappedModel.notes`
+-------------------------------------------------------
+- ``eval()`` is called (BatchNorm uses its running statistics, Dropout is off); a note says so
+  when the model came in train mode.
+- Cross-sections are float32 HU; a model whose parameters are of another float dtype (e.g.
+  float64) gets its input cast to that dtype, with a note.
+- Only two callables named ``encode_segments`` and ``head`` together make the protocol; a lone
+  one (e.g. a patient MLP kept as a submodule ``head``) is not used, the model is wrapped
+  automatically, and a note says so.
+- When the part after the max cannot be replayed for several patients from one dummy stack
+  (it uses the batch size, say), it is replayed with one dummy stack per patient, with a note.
 
 Ties
 ----
@@ -38,28 +61,25 @@ protocol path and the wrapped ``forward`` use ``torch.max``.
 from __future__ import annotations
 
 import hashlib
-import math
 from collections import OrderedDict
 
 import torch
-from torch.overrides import TorchFunctionMode
 
 from ..errors import InputError, ModelError
+from ._split import Split, Stop, features, find_split
+from .checks import PROTOCOL_HELP, close, extra_segment, refuse_unrepeatable, same_output
 from .spec import CrossSectionSpec
 
 __all__ = ["WrappedModel", "wrap_model", "weights_hash"]
 
-_PROTOCOL_HELP = (
-    "Give the module two methods instead: encode_segments(x (B, S, N, H, W)) -> (B, S, C) "
-    "features per segment, and head(pooled (B, C)) -> output; the model is then "
-    "head(encode_segments(x).max(dim=1).values)."
+_SCRIPT_HELP = (
+    "The max inside a TorchScript model cannot be seen from Python: give the module the two "
+    "methods and export them with @torch.jit.export before scripting, as in "
+    "(1) `@torch.jit.export def encode_segments(self, x): return self.features(x)  # (B, S, C)` "
+    "(2) `@torch.jit.export def head(self, pooled): return self.classifier(pooled)` "
+    "(3) `def forward(self, x): return self.head(self.encode_segments(x).max(dim=1).values)`; "
+    "to trace, trace all three with torch.jit.trace_module; see docs/your-model.md"
 )
-_REDUCTIONS = {
-    "max", "amax", "max_pool1d", "max_pool1d_with_indices",
-    "adaptive_max_pool1d", "adaptive_max_pool1d_with_indices",
-}
-_POOLS = {"max_pool1d", "max_pool1d_with_indices", "adaptive_max_pool1d",
-          "adaptive_max_pool1d_with_indices"}
 
 
 def weights_hash(module):
@@ -74,116 +94,11 @@ def weights_hash(module):
     return digest.hexdigest()[:12]
 
 
-def _reduced_dim(name, args, kwargs):
-    """(input tensor, reduced axis) of a max-family call, or None if it reduces no single axis."""
-    if not args or not isinstance(args[0], torch.Tensor):
-        return None
-    t = args[0]
-    if name in _POOLS:
-        if t.ndim < 2:
-            return None
-        length = t.shape[-1]
-        if name.startswith("adaptive"):
-            size = args[1] if len(args) > 1 else kwargs.get("output_size")
-            size = size[0] if isinstance(size, (tuple, list)) else size
-            return (t, t.ndim - 1) if size == 1 else None
-        kernel = args[1] if len(args) > 1 else kwargs.get("kernel_size")
-        kernel = kernel[0] if isinstance(kernel, (tuple, list)) else kernel
-        return (t, t.ndim - 1) if kernel is not None and kernel >= length else None
-    dim = args[1] if len(args) > 1 else kwargs.get("dim")
-    if isinstance(dim, torch.Tensor) or dim is None:  # elementwise max(a, b) or a full reduction
-        return None
-    if isinstance(dim, (tuple, list)):
-        if len(dim) != 1:
-            return None
-        dim = dim[0]
-    return t, dim % t.ndim
+def _first_line(exc):
+    text = str(exc).strip().splitlines()
+    return f"{type(exc).__name__}: {text[0] if text else ''}".rstrip(": ")
 
 
-class _Record(TorchFunctionMode):
-    def __init__(self):
-        super().__init__()
-        self.calls = []  # (name, size of the reduced axis or None)
-
-    def __torch_function__(self, func, types, args=(), kwargs=None):
-        kwargs = kwargs or {}
-        name = getattr(func, "__name__", "")
-        if name in _REDUCTIONS:
-            found = _reduced_dim(name, args, kwargs)
-            self.calls.append((name, None if found is None else found[0].shape[found[1]]))
-        return func(*args, **kwargs)
-
-
-class _Stop(Exception):
-    def __init__(self, tensor, dim):
-        super().__init__("segment max reached")
-        self.tensor, self.dim = tensor, dim
-
-
-class _Split(TorchFunctionMode):
-    """Stop at (encode) or replace (head) the ``index``-th max-family call."""
-
-    def __init__(self, index, pooled=None, grad=True):
-        super().__init__()
-        self.index, self.pooled, self.grad, self.count = index, pooled, grad, 0
-
-    def __torch_function__(self, func, types, args=(), kwargs=None):
-        kwargs = kwargs or {}
-        name = getattr(func, "__name__", "")
-        if name in _REDUCTIONS:
-            here, self.count = self.count, self.count + 1
-            if here == self.index:
-                found = _reduced_dim(name, args, kwargs)
-                if found is None:
-                    raise ModelError("the segment max was not found again at the same call")
-                t, dim = found
-                if self.pooled is None:
-                    raise _Stop(t, dim)
-                torch.set_grad_enabled(self.grad)
-                return _substitute(name, args, kwargs, t, dim, self.pooled)
-        return func(*args, **kwargs)
-
-
-def _layout(t, dim):
-    batch = 0 if dim != 0 else 1
-    perm = [batch, dim] + [a for a in range(t.ndim) if a not in (batch, dim)]
-    return perm
-
-
-def _features(t, dim):
-    perm = _layout(t, dim)
-    p = t.permute(perm)
-    return p.reshape(p.shape[0], p.shape[1], -1)
-
-
-def _substitute(name, args, kwargs, t, dim, pooled):
-    perm = _layout(t, dim)
-    rest = [t.shape[a] for a in perm[2:]]
-    if pooled.shape[1] != math.prod(rest):
-        raise ModelError(
-            f"head: pooled tensor has {pooled.shape[1]} channels, the model's max has "
-            f"{math.prod(rest)}"
-        )
-    values = pooled.reshape(pooled.shape[0], 1, *rest).permute(_inverse(perm))
-    if name in _POOLS:
-        keep = True
-    else:
-        keep = bool(args[2] if len(args) > 2 else kwargs.get("keepdim", False))
-    if not keep:
-        values = values.squeeze(dim)
-    if name == "max" or name.endswith("with_indices") or kwargs.get("return_indices"):
-        indices = torch.zeros(values.shape, dtype=torch.long, device=values.device)
-        if name == "max":
-            return torch.return_types.max((values, indices))
-        return values, indices
-    return values
-
-
-def _inverse(perm):
-    inv = [0] * len(perm)
-    for i, p in enumerate(perm):
-        inv[p] = i
-    return inv
 
 
 class WrappedModel:
@@ -200,15 +115,23 @@ class WrappedModel:
     name : str
     kind : {"protocol", "plain"}
         Whether the split comes from the module's own methods or from watching its forward.
+    dtype : torch.dtype or None
+        The float dtype of the model's parameters; inputs are cast to it.
+    notes : tuple of str
+        What wrapping assumed or did (eval mode, an input cast, a lone ``head`` not used...).
     """
 
-    def __init__(self, module, *, kind, spec=None, grade_labels=None, name=None):
+    def __init__(self, module, *, kind, spec=None, grade_labels=None, name=None, notes=(),
+                 dtype=None):
         self.module = module
         self.kind = kind
         self.spec = spec
         self.grade_labels = grade_labels
         self.name = name or type(module).__name__
+        self.dtype = dtype
+        self._notes = list(notes)
         self._hash = None
+        self._checked = False  # the checks of explain.model.checks have passed
         self._split = None  # plain models: (call index, dummy (N, H, W), head batches by broadcast)
 
     def __repr__(self):
@@ -218,11 +141,28 @@ class WrappedModel:
         )
 
     @property
+    def notes(self):
+        """What wrapping assumed or did, in words, for the report's notes."""
+        return tuple(self._notes)
+
+    def _note(self, text):
+        if text not in self._notes:
+            self._notes.append(text)
+
+    @property
     def weights_hash(self):
         """Short sha256 of the module's state_dict."""
         if self._hash is None:
             self._hash = weights_hash(self.module)
         return self._hash
+
+    def with_spec(self, spec):
+        """The same model (same module, notes) expecting another cross-section spec."""
+        other = WrappedModel(self.module, kind=self.kind, spec=spec,
+                             grade_labels=self.grade_labels, name=self.name, notes=self._notes,
+                             dtype=self.dtype)
+        other._hash, other._checked = self._hash, self._checked
+        return other
 
     def check_input(self, x, *, name="x"):
         """Raise InputError unless ``x`` is a float (B, S, N, H, W) tensor matching the spec."""
@@ -234,30 +174,47 @@ class WrappedModel:
         if self.spec is not None and tuple(x.shape[2:]) != self.spec.shape:
             raise InputError(
                 f"{name}: cross-sections of shape {tuple(x.shape[2:])}, the model {self.name!r} "
-                f"expects {self.spec.shape} ({self.spec}); resample the case with that spec"
+                f"expects {self.spec.shape} ({self.spec}); sample the case with that spec"
             )
+
+    def prepare(self, x):
+        """Find the split (plain models) and run the checks on ``x (B, S, N, H, W)``, once."""
+        if self._checked:
+            return
+        with torch.no_grad():
+            self.encode(x.detach())
+
+    def _cast(self, x):
+        return x if self.dtype is None or x.dtype == self.dtype else x.to(self.dtype)
 
     def encode(self, x):
         """Segment features ``(B, S, C)`` of ``x (B, S, N, H, W)``."""
         self.check_input(x)
+        x = self._cast(x)
         if self.kind == "protocol":
             feats = self.module.encode_segments(x)
-        else:
-            self._detect(x)
-            try:
-                with _Split(self._split[0]):
-                    self.module(x)
-            except _Stop as stop:
-                feats = _features(stop.tensor, stop.dim)
-            else:
-                raise ModelError("the segment max was not reached in this forward pass")
-        if not isinstance(feats, torch.Tensor) or feats.shape[:2] != x.shape[:2] or feats.ndim != 3:
+            self._check_shape(feats, x)
+            if not self._checked:
+                self._check_protocol(x, feats)
+            return feats
+        self._detect(x)
+        return self._plain_encode(x)
+
+    def _plain_encode(self, x):
+        try:
+            with Split(self._split[0]):
+                self.module(x)
+        except Stop as stop:
+            return features(stop.tensor, stop.dim)
+        raise ModelError(f"{self.name}: the segment max was not reached in this forward pass")
+
+    def _check_shape(self, feats, x):
+        if not isinstance(feats, torch.Tensor) or feats.ndim != 3 or feats.shape[:2] != x.shape[:2]:
             got = tuple(feats.shape) if isinstance(feats, torch.Tensor) else type(feats).__name__
             raise ModelError(
                 f"{self.name}: encode_segments returned {got}, expected "
                 f"{(x.shape[0], x.shape[1], 'C')}"
             )
-        return feats
 
     def head(self, pooled):
         """Model output for pooled features ``(B, C)``."""
@@ -265,106 +222,168 @@ class WrappedModel:
             return self.module.head(pooled)
         if self._split is None:
             raise ModelError("head: call encode (or forward) once first, so the segment max is found")
-        index, dummy_shape, broadcast = self._split
-        rows = 1 if broadcast else pooled.shape[0]
-        dummy = torch.zeros((rows, 1) + dummy_shape, dtype=pooled.dtype, device=pooled.device)
-        grad = torch.is_grad_enabled()
-        torch.set_grad_enabled(False)
-        mode = _Split(index, pooled=pooled, grad=grad)
-        # the replay's encoder pass is not the patient's: hooks (captum's layer hooks) must not
-        # see it, so the modules' own forward hooks are set aside while it runs
-        saved = [(m, m._forward_hooks, m._forward_pre_hooks) for m in self.module.modules()]
-        try:
-            for m, _, _ in saved:
-                m._forward_hooks, m._forward_pre_hooks = OrderedDict(), OrderedDict()
-            with mode:
-                out = self.module(dummy)
-        finally:
-            torch.set_grad_enabled(grad)
-            for m, hooks, pre in saved:
-                m._forward_hooks, m._forward_pre_hooks = hooks, pre
-        if mode.count <= index:
-            raise ModelError(f"{self.name}: the segment max was not reached when replaying the head")
-        return out
+        return _replay_head(self.module, self._split, pooled, name=self.name)
 
     def forward(self, x):
         """The whole model on ``x (B, S, N, H, W)``."""
         self.check_input(x)
         if self.kind == "protocol":
-            return self.module.head(self.module.encode_segments(x).max(dim=1).values)
+            return self.module.head(self.encode(x).max(dim=1).values)
+        x = self._cast(x)
+        self._detect(x)
         return self.module(x)
 
     __call__ = forward
 
+    def _check_protocol(self, x, feats):
+        """Repeatable passes and independent segments, at the cost of one encoder pass on S + 1."""
+        enc = self.module.encode_segments
+        with torch.no_grad():
+            feats = feats.detach()
+            more = extra_segment(x.detach())
+            longer = enc(more)
+            self._check_shape(longer, more)
+            if not close(longer[:, : x.shape[1]], feats):
+                if not close(enc(x.detach()), feats):
+                    refuse_unrepeatable(self.name, "encode_segments")
+                raise ModelError(
+                    f"{self.name}: the features of a segment change when another segment is "
+                    "added, so encode_segments mixes segments before the max; culprit-lens needs "
+                    "each segment encoded on its own")
+            pooled = feats.max(dim=1).values
+            if not same_output(self.module.head(pooled), self.module.head(pooled)):
+                refuse_unrepeatable(self.name, "head")
+        self._checked = True
+
     def _detect(self, x):
         if self._split is not None:
             return
-        s = x.shape[1]
         probe = x.detach()
-        longer = torch.cat([probe, probe[:, :1]], dim=1)
-        runs = []
-        with torch.no_grad():
-            for inp in (probe, longer):
-                rec = _Record()
-                with rec:
-                    out_ = self.module(inp)
-                runs.append((rec.calls, out_))
-        (calls_a, out_a), (calls_b, _) = runs
-        found = [
-            i for i, ((na, sa), (nb, sb)) in enumerate(zip(calls_a, calls_b))
-            if na == nb and sa == s and sb == s + 1
-        ]
-        if len(calls_a) != len(calls_b):
-            found = []
-        seen = ", ".join(sorted({n for n, _ in calls_a})) or "none"
-        if not found:
-            raise ModelError(
-                f"{self.name}: no maximum over the segment axis (size {s}) was found in the "
-                f"forward pass (max-family calls seen: {seen}; TorchScript internals are not "
-                f"visible). {_PROTOCOL_HELP}"
-            )
-        if len(found) > 1:
-            raise ModelError(
-                f"{self.name}: {len(found)} maxima over the segment axis were found (calls "
-                f"{found} of the max family); culprit-lens needs exactly one. {_PROTOCOL_HELP}"
-            )
-        index = found[0]
+        index, out_a = find_split(self.module, probe, name=self.name, script_help=_SCRIPT_HELP,
+                                  protocol_help=PROTOCOL_HELP)
         self._split = (index, tuple(x.shape[2:]), True)
+        try:
+            self._verify_split(probe, out_a)
+        except BaseException:
+            self._split = None
+            raise
+        self._checked = True
+
+    def _verify_split(self, probe, out_a):
+        """Independent segments, and a head replay that reproduces the model's output."""
+        s = probe.shape[1]
         with torch.no_grad():
-            feats_a = self.encode(probe)
-            feats_b = self.encode(longer)
-            if not torch.allclose(feats_a, feats_b[:, :s], rtol=1e-4, atol=1e-5):
-                self._split = None
+            feats_a = self._plain_encode(probe)
+            feats_b = self._plain_encode(torch.cat([probe, probe[:, :1]], dim=1))
+            if not close(feats_a, feats_b[:, :s]):
+                if not close(self._plain_encode(probe), feats_a):
+                    refuse_unrepeatable(self.name, "encoder")
                 raise ModelError(
                     f"{self.name}: the features of a segment change when another segment is "
-                    f"added, so the model mixes segments before its max. {_PROTOCOL_HELP}"
-                )
+                    f"added, so the model mixes segments before its max. {PROTOCOL_HELP}")
             pooled = feats_a.max(dim=1).values
-            twice = torch.cat([pooled, pooled], dim=0)
-            ref = out_a
             try:
-                got = self.head(twice)
-                ok = _same(got, ref, rows=2)
-            except Exception:  # noqa: BLE001 - any failure means the dummy cannot broadcast
-                ok = False
-            if not ok:
-                self._split = (index, tuple(x.shape[2:]), False)
-                if not _same(self.head(pooled), ref, rows=1):
-                    self._split = None
-                    raise ModelError(
-                        f"{self.name}: replaying the part after the segment max does not "
-                        f"reproduce the model's output. {_PROTOCOL_HELP}"
-                    )
+                ok = same_output(self.head(torch.cat([pooled, pooled])), out_a, rows=2)
+                why = "its output differs"
+            except (RuntimeError, ValueError, TypeError, IndexError, ModelError) as exc:
+                ok, why = False, _first_line(exc)
+            if ok:
+                return
+            self._split = self._split[:2] + (False,)
+            if same_output(self.head(pooled), out_a, rows=1):
+                self._note(f"head replay: one dummy stack could not stand for 2 patients ({why});"
+                           " the part before the max is replayed with one dummy stack per "
+                           "patient (slower, same values)")
+                return
+            if not same_output(self.module(probe), out_a):
+                refuse_unrepeatable(self.name, "forward")
+            raise ModelError(
+                f"{self.name}: replaying the part after the segment max does not reproduce the "
+                f"model's output. {PROTOCOL_HELP}")
 
 
-def _same(got, ref, *, rows):
-    if isinstance(ref, dict):
-        return isinstance(got, dict) and set(got) == set(ref) and all(
-            _same(got[k], ref[k], rows=rows) for k in ref
-        )
-    if not isinstance(got, torch.Tensor) or got.shape[0] != rows * ref.shape[0]:
-        return False
-    return torch.allclose(got, ref.repeat((rows,) + (1,) * (ref.ndim - 1)), rtol=1e-4, atol=1e-5)
+def _replay_head(module, split, pooled, *, name):
+    """Run ``module`` on a dummy input with ``pooled`` in place of its segment max."""
+    index, dummy_shape, broadcast = split
+    rows = 1 if broadcast else pooled.shape[0]
+    dummy = torch.zeros((rows, 1) + dummy_shape, dtype=pooled.dtype, device=pooled.device)
+    grad = torch.is_grad_enabled()
+    torch.set_grad_enabled(False)
+    mode = Split(index, pooled=pooled, grad=grad)
+    # the replay's encoder pass is not the patient's: hooks (captum's layer hooks) must not
+    # see it, so the modules' own forward hooks are set aside while it runs
+    saved = [(m, m._forward_hooks, m._forward_pre_hooks) for m in module.modules()]
+    try:
+        for m, _, _ in saved:
+            m._forward_hooks, m._forward_pre_hooks = OrderedDict(), OrderedDict()
+        with mode:
+            out = module(dummy)
+    finally:
+        torch.set_grad_enabled(grad)
+        for m, hooks, pre in saved:
+            m._forward_hooks, m._forward_pre_hooks = hooks, pre
+    if mode.count <= index:
+        raise ModelError(f"{name}: the segment max was not reached when replaying the head")
+    return out
+
+
+def _is_method(module, attr):
+    """A callable attribute (a method, a TorchScript method or a submodule), or None."""
+    value = getattr(module, attr, None)
+    return value is not None and callable(value)
+
+
+def _kind(module, name, notes):
+    """``"protocol"`` when both encode_segments and head are callables, else ``"plain"``."""
+    has = {m: _is_method(module, m) for m in ("encode_segments", "head")}
+    if all(has.values()):
+        return "protocol"
+    for attr, present in has.items():
+        if present:
+            what = ("a submodule" if isinstance(getattr(module, attr), torch.nn.Module)
+                    else "a method")
+            other = "head" if attr == "encode_segments" else "encode_segments"
+            notes.append(f"{name}: {attr} is {what} but there is no {other}, so it is not the "
+                         "protocol; the segment max was looked for in forward (automatic "
+                         "wrapping)")
+    return "plain"
+
+
+def _module_spec(module, name):
+    spec = getattr(module, "cross_section_spec", None)
+    if spec is None or isinstance(spec, CrossSectionSpec):
+        return spec
+    if isinstance(spec, dict):
+        return CrossSectionSpec.coerce(spec, where=f"{name}.cross_section_spec")
+    raise ModelError(
+        f"{name}.cross_section_spec: expected a CrossSectionSpec or a dict with points, size and "
+        f"pixel_mm, got {type(spec).__name__} {spec!r}; fix the attribute, or give the sampling "
+        "explicitly (the sidecar <model>.spec.json, or --points, --size and --pixel-mm)")
+
+
+def _module_labels(module, name):
+    labels = getattr(module, "grade_labels", None)
+    if labels is not None and (isinstance(labels, (str, bytes)) or not hasattr(labels, "__iter__")):
+        raise ModelError(f"{name}.grade_labels: expected a sequence of labels, one per output "
+                         f"column, got {type(labels).__name__} {labels!r}")
+    return labels
+
+
+def _dtype(module, name, notes):
+    """The float dtype of the parameters and buffers (None when there are none)."""
+    found = {t.dtype for t in list(module.parameters()) + list(module.buffers())
+             if t.is_floating_point()}
+    if len(found) > 1:
+        raise ModelError(
+            f"{name}: parameters in several float dtypes ({', '.join(sorted(map(str, found)))}); "
+            "cross-sections cannot be cast to all of them faithfully; convert the model to one "
+            "dtype first, e.g. model.float()")
+    dtype = found.pop() if found else None
+    if dtype is not None and dtype != torch.float32:
+        notes.append(f"{name}: the model's parameters are {str(dtype).replace('torch.', '')}; the "
+                     f"cross-sections (float32 HU) are cast to it before the model, and maps "
+                     "are stored as float32")
+    return dtype
 
 
 def wrap_model(module, *, spec=None, grade_labels=None, name=None):
@@ -373,11 +392,12 @@ def wrap_model(module, *, spec=None, grade_labels=None, name=None):
     Parameters
     ----------
     module : torch.nn.Module
-        Either with methods ``encode_segments(x) -> (B, S, C)`` and ``head(pooled) -> output``,
+        Either with callables ``encode_segments(x) -> (B, S, C)`` and ``head(pooled) -> output``,
         or any module whose forward takes one maximum over the segment axis (found automatically
         on the first call; see the module docstring).
     spec : CrossSectionSpec or dict, optional
-        Sampling the model expects; defaults to ``module.cross_section_spec`` if present.
+        Sampling the model expects; defaults to ``module.cross_section_spec`` if present (a
+        malformed one is an error).
     grade_labels : sequence of str, optional
         Label of each output column; defaults to ``module.grade_labels`` if present.
     name : str, optional
@@ -403,26 +423,21 @@ def wrap_model(module, *, spec=None, grade_labels=None, name=None):
     """
     if not isinstance(module, torch.nn.Module):
         raise ModelError(f"wrap_model: expected a torch.nn.Module, got {type(module).__name__}")
+    label = name or type(module).__name__
     if spec is None:
-        spec = getattr(module, "cross_section_spec", None)
-        if isinstance(spec, dict):
-            spec = CrossSectionSpec.coerce(spec, where="module.cross_section_spec")
-        elif spec is not None and not isinstance(spec, CrossSectionSpec):
-            spec = None
+        spec = _module_spec(module, label)
     else:
         spec = CrossSectionSpec.coerce(spec, where="spec")
     if grade_labels is None:
-        grade_labels = getattr(module, "grade_labels", None)
+        grade_labels = _module_labels(module, label)
     if grade_labels is not None:
         grade_labels = tuple(str(v) for v in grade_labels)
-    has = [hasattr(module, m) and callable(getattr(module, m)) for m in ("encode_segments", "head")]
-    if any(has) and not all(has):
-        raise ModelError(
-            f"{name or type(module).__name__}: has only one of encode_segments and head. "
-            + _PROTOCOL_HELP
-        )
+    notes = []
+    kind = _kind(module, label, notes)
+    if any(m.training for m in module.modules()):
+        notes.append(f"{label}: the model came in train mode; culprit-lens called eval(), so "
+                     "BatchNorm uses its running statistics and Dropout is off, as at inference")
     module.eval()
-    return WrappedModel(
-        module, kind="protocol" if all(has) else "plain", spec=spec,
-        grade_labels=grade_labels, name=name,
-    )
+    dtype = _dtype(module, label, notes)
+    return WrappedModel(module, kind=kind, spec=spec, grade_labels=grade_labels, name=name,
+                        notes=notes, dtype=dtype)

@@ -201,6 +201,7 @@ def _say(progress, message):
 
 
 def _check_methods(methods):
+    """The methods to run: the checked names, or :data:`DEFAULT_METHODS` for None."""
     from ..attribution import METHODS
 
     if methods is None:
@@ -239,62 +240,83 @@ def method_settings(method, shape, *, seed):
     return {}
 
 
-def _sampling(model, points, size, pixel_mm):
-    """Explicit options win over the model's own cross-section spec."""
+_OPTION = {"points": "--points (points)", "size": "--size (size)",
+           "pixel_mm": "--pixel-mm (pixel_mm)"}
+
+
+def _sampling(model, points, size, pixel_mm, notes):
+    """Explicit options win over the model's own cross-section spec; a conflict is noted.
+
+    Returns the sampling and the model (with its spec replaced when an option overrode it).
+    """
+    from ..model.spec import CrossSectionSpec
+
     spec = getattr(model, "spec", None)
-    chosen = {
-        "points": points if points is not None else getattr(spec, "points", None),
-        "size": size if size is not None else getattr(spec, "size", None),
-        "pixel_mm": pixel_mm if pixel_mm is not None else getattr(spec, "pixel_mm", None),
-    }
+    given = {"points": points, "size": size, "pixel_mm": pixel_mm}
+    chosen = {k: v if v is not None else getattr(spec, k, None) for k, v in given.items()}
     missing = [k for k, v in chosen.items() if v is None]
     if missing:
         raise InputError(
             f"{', '.join(missing)}: the model {getattr(model, 'name', '?')!r} states no "
             "cross-section sampling; give --points, --size and --pixel-mm")
-    return chosen
+    conflicts = [f"{_OPTION[k]} {v:g} conflicts with the model's spec ({getattr(spec, k):g})"
+                 for k, v in given.items() if spec is not None and v is not None
+                 and float(v) != float(getattr(spec, k))]
+    if conflicts:
+        notes.append("sampling: " + "; ".join(conflicts) + "; the value you gave wins, and the "
+                     "model is run on cross-sections sampled that way")
+        if hasattr(model, "with_spec"):
+            model = model.with_spec(CrossSectionSpec(**chosen))
+    return chosen, model
 
 
-def _graded_scores(output):
-    """The output entry that holds the grade, as a (K,) tensor for the first patient."""
-    if isinstance(output, dict):
-        key = "grade" if "grade" in output else next(iter(output))
-        output = output[key]
-    return output.detach().reshape(output.shape[0], -1)[0].double()
+def _graded_scores(output, resolved):
+    """The output entry the target explains, as a (K,) float64 tensor for the first patient."""
+    from ..model.targets import output_entry
+
+    entry = output_entry(output, resolved.key)
+    return entry.detach().reshape(entry.shape[0], -1)[0].double()
 
 
-def _check_grade_labels(output, grade_labels, model):
-    """Refuse grade labels whose count is not the number of output columns."""
+def _check_grade_labels(output, resolved, grade_labels, model):
+    """Refuse grade labels whose count is not the number of the explained entry's columns."""
     if grade_labels is None:
         return
-    k = _graded_scores(output).numel()
+    k = _graded_scores(output, resolved).numel()
     if len(grade_labels) != k:
+        where = "" if resolved.key is None else f" (output entry {resolved.key!r})"
         raise ModelError(
             f"grade labels of model {getattr(model, 'name', '?')!r}: {len(grade_labels)} labels "
-            f"{list(grade_labels)} for {k} output columns; give one label per column "
+            f"{list(grade_labels)} for {k} output columns{where}; give one label per column "
             "(--grade-labels, the sidecar <model>.spec.json, or the module's grade_labels)")
 
 
-def _prediction(output, grade_labels):
-    """``grade`` is the top column's label, or None when the model gives no grade labels."""
+def _prediction(output, resolved, grade_labels):
+    """``grade`` is the top column's label, or None when the model gives no grade labels.
+
+    The columns are those of the output entry the target explains (``entry``: its key or
+    index, None for a plain tensor output), never an entry picked silently.
+    """
     import torch
 
-    scores = _graded_scores(output)
+    scores = _graded_scores(output, resolved)
     columns = [str(i) for i in range(scores.numel())]
     labels = columns if grade_labels is None else [str(g) for g in grade_labels]
     probs = torch.softmax(scores, dim=0)
     best = int(torch.argmax(scores))
     return {"grade": None if grade_labels is None else labels[best], "column": best,
+            "entry": resolved.key,
             "scores": {lab: float(s) for lab, s in zip(labels, scores)},
             "probabilities": {lab: float(p) for lab, p in zip(labels, probs)}}
 
 
 def _check_arguments(model, methods, seed, baseline_hu):
-    """explain_case's cheap checks, before any work; returns (methods, baseline_hu as float)."""
+    """explain_case's cheap checks, before any work; returns (methods, named, baseline_hu)."""
     if not all(callable(getattr(model, name, None)) for name in ("encode", "head", "forward")):
         raise InputError(
             f"model: expected a wrapped model (explain.load_model or explain.wrap_model), got "
             f"{type(model).__name__}; wrap a torch module with explain.wrap_model(module)")
+    named = methods is not None
     methods = _check_methods(methods)
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)):
         raise InputError(f"seed: expected an integer, got {seed!r}")
@@ -304,37 +326,40 @@ def _check_arguments(model, methods, seed, baseline_hu):
         raise InputError(f"baseline_hu: expected a number of HU, got {baseline_hu!r}") from None
     if not np.isfinite(baseline_hu):
         raise InputError(f"baseline_hu: expected a finite number of HU, got {baseline_hu}")
-    return methods, baseline_hu
+    return methods, named, baseline_hu
 
 
-def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, seed, progress,
-                   notes):
-    """One map per method, (S, N, H, W) float32, and the options each used; notes appended."""
+def _run_model(model, x, notes):
+    """The model's output on the case; a failure names the shape and any sampling conflict."""
     import torch
 
-    from ..attribution import attribute
+    with torch.no_grad():
+        try:
+            return model.forward(x)
+        except (RuntimeError, ValueError, TypeError, IndexError) as exc:
+            conflict = [n for n in notes if n.startswith("sampling: ")]
+            hint = (f" ({conflict[0]}; leave the option out to sample as the model's spec says)"
+                    if conflict else "")
+            text = str(exc).strip()
+            cause = text.splitlines()[0] if text else type(exc).__name__
+            raise ModelError(f"model {getattr(model, 'name', '?')!r} failed on the case's "
+                             f"cross-sections {tuple(x.shape)}{hint}: {cause}") from None
 
-    maps, method_options = {}, {}
-    for n, method in enumerate(methods, 1):
-        _say(progress, f"saliency {n}/{len(methods)}: {method}")
-        options = method_settings(method, stack_shape, seed=seed)
-        method_options[method] = options
-        torch.manual_seed(seed)
-        if method == "integrated_gradients":
-            result, delta = attribute(model, x, method=method, target=resolved,
-                                      baseline_hu=baseline_hu, return_convergence_delta=True,
-                                      **options)
-            notes.append(f"integrated_gradients: completeness gap (convergence delta) "
-                         f"{float(delta[0]):.3g} target units")
-        else:
-            result = attribute(model, x, method=method, target=resolved,
-                               baseline_hu=baseline_hu, **options)
-        maps[method] = result.detach().cpu().numpy()[0].astype(np.float32)
-    return maps, method_options
+
+def _methods_to_run(model, x, methods, named, stack_shape, *, gradcam_layer, seed, notes):
+    """(methods, options per method, skipped method -> reason), checked before any map."""
+    from .saliency import usable_methods
+
+    methods, found, skipped = usable_methods(model, x, methods, named=named,
+                                             gradcam_layer=gradcam_layer, notes=notes)
+    options = {m: {**method_settings(m, stack_shape, seed=seed), **found.get(m, {})}
+               for m in methods}
+    return methods, options, skipped
 
 
 def explain_case(model, case, *, methods=None, target="auto", points=None, size=None,
-                 pixel_mm=None, baseline_hu=0.0, seed=0, progress=None, quality=True):
+                 pixel_mm=None, baseline_hu=0.0, seed=0, gradcam_layer=None, progress=None,
+                 quality=True):
     """Explain one case with a wrapped model.
 
     Parameters
@@ -344,17 +369,25 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     case : explain.case.Case
         From :func:`explain.load_case`.
     methods : sequence of str, optional
-        Saliency methods (:data:`explain.attribution.METHODS`); default :data:`DEFAULT_METHODS`.
+        Saliency methods (:data:`explain.attribution.METHODS`); default :data:`DEFAULT_METHODS`,
+        of which any that does not apply to the model is skipped with the reason in ``notes``
+        (a method named here that does not apply is an error).
     target : int or str
-        Output column, ``"predicted"``, ``"expected"``, ``"auto"`` or ``"key:index"`` (dict
-        outputs). ``"auto"``: the expected CAD-RADS category when the model's grade labels are
-        CAD-RADS categories, else the predicted column (see :mod:`explain.model.targets`).
+        Output column, ``"predicted"``, ``"expected"``, ``"auto"``, or ``"key:..."`` /
+        ``"index:..."`` for dict / tuple and list outputs. ``"auto"``: the expected CAD-RADS
+        category when the model's grade labels are CAD-RADS categories, else the predicted
+        column (see :mod:`explain.model.targets` and docs/your-model.md).
     points, size, pixel_mm : int, int, float, optional
-        Cross-section sampling; default the model's spec (explicit values win).
+        Cross-section sampling; default the model's spec (explicit values win, and a value that
+        conflicts with the spec is noted).
     baseline_hu : float
         The "absent" value (baseline segment, occlusion fill, IG baseline), HU.
     seed : int
         Seeds torch before each sampled step (SmoothGrad noise, sampled Shapley values).
+    gradcam_layer : str, optional
+        Dotted name of the Grad-CAM layer; default the module's ``cam_layer``, else its last
+        convolution. Its stride and offset are worked out from the model's layers where they
+        allow it (:func:`explain.attribution.gradcam.resolve_geometry`).
     progress : callable(str), optional
         Called with a short message before each long step.
     quality : bool or dict
@@ -369,11 +402,13 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
 
     from ..attribution import trace_segments
     from ..geometry import sample_case
-    from ..model.targets import resolve_target
+    from ..model.targets import resolve_target, target_note
+    from .saliency import saliency_maps
 
-    methods, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
+    methods, named, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
     quality_settings = quality_option(quality)
-    sampling = _sampling(model, points, size, pixel_mm)
+    notes = []  # this run's notes; the case's and the model's (read at the end) come first
+    sampling, model = _sampling(model, points, size, pixel_mm, notes)
 
     _say(progress, f"sampling cross-sections of {len(case.segments)} segments "
                    f"({sampling['points']} x {sampling['size']}x{sampling['size']} px at "
@@ -381,24 +416,24 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     sections = sample_case(case, **sampling)
     x = sections.tensor()
     grade_labels = getattr(model, "grade_labels", None)
-    with torch.no_grad():
-        try:
-            output = model.forward(x)
-        except (RuntimeError, ValueError, TypeError) as exc:
-            raise ModelError(f"model {getattr(model, 'name', '?')!r} failed on the case's "
-                             f"cross-sections {tuple(x.shape)}: {str(exc).splitlines()[0]}") from None
-    _check_grade_labels(output, grade_labels, model)
+    output = _run_model(model, x, notes)
     resolved = resolve_target(output, target, grade_labels=grade_labels)
+    _check_grade_labels(output, resolved, grade_labels, model)
+    note = target_note(output, target, resolved)
+    if note:
+        notes.append(note)
     with torch.no_grad():
         target_value = float(resolved(output)[0])
+    # cheap checks of the methods (Grad-CAM's layer) before the expensive steps
+    methods, method_options, skipped = _methods_to_run(
+        model, x, methods, named, sections.values.shape[1:], gradcam_layer=gradcam_layer,
+        seed=int(seed), notes=notes)
 
     _say(progress, "tracing segments (winning channels, leave-one-out, Shapley)")
     trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed))
 
-    notes = list(case.notes)
-    maps, method_options = _saliency_maps(model, x, methods, resolved, sections.values.shape[1:],
-                                          baseline_hu=baseline_hu, seed=int(seed),
-                                          progress=progress, notes=notes)
+    maps = saliency_maps(model, x, methods, resolved, method_options, baseline_hu=baseline_hu,
+                         seed=int(seed), progress=progress, notes=notes)
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
@@ -406,7 +441,8 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     settings = {
         "methods": list(methods), "target": target if isinstance(target, (int, str)) else label,
         **sampling, "rotation_deg": 0.0, "baseline_hu": baseline_hu, "seed": int(seed),
-        "method_options": method_options, "profile_aggregate": {m: aggregate_of(m) for m in methods},
+        "method_options": method_options, "skipped_methods": skipped,
+        "profile_aggregate": {m: aggregate_of(m) for m in methods},
         "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
         "extent_rule": "contiguous run at or above half the peak profile value",
         "culprit_rule": "largest Shapley value over segments",
@@ -416,12 +452,13 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         case=case, sections=sections,
         model={"name": getattr(model, "name", None),
                "weights_hash": getattr(model, "weights_hash", None),
+               "kind": getattr(model, "kind", None),
                "grade_labels": None if grade_labels is None else [str(g) for g in grade_labels]},
-        settings=settings, prediction=_prediction(output, grade_labels),
+        settings=settings, prediction=_prediction(output, resolved, grade_labels),
         target={"requested": settings["target"], "label": label, "value": target_value,
                 "value_all": float(trace.value_all), "value_none": float(trace.value_empty)},
         segments=segments, culprit_index=int(trace.culprit), margin=float(trace.margin),
-        maps=maps, notes=tuple(notes),
+        maps=maps, notes=tuple(case.notes) + tuple(getattr(model, "notes", ())) + tuple(notes),
     )
     if quality_settings is None:
         return explanation

@@ -27,7 +27,8 @@ def grade_phrase(prediction):
     ----------
     prediction : dict
         ``grade`` (label of the top column, or None when the model gives no labels) and
-        ``column`` (its index), as in report.json.
+        ``column`` (its index), and ``entry`` (the dict key or tuple index of the output entry
+    whose columns these are, None or absent for a plain tensor), as in report.json.
 
     Examples
     --------
@@ -37,13 +38,17 @@ def grade_phrase(prediction):
     "grade 'dark' (output column 1)"
     >>> grade_phrase({"grade": None, "column": 5})
     'output column 5 has the top score (the model gives no grade labels)'
+    >>> grade_phrase({"grade": None, "column": 0, "entry": 1})
+    'column 0 of output 1 has the top score (the model gives no grade labels)'
     """
     label, column = prediction.get("grade"), prediction.get("column")
+    entry = prediction.get("entry")
+    where = f"output column {column}" if entry is None else f"column {column} of output {entry!r}"
     if label is None:
-        return f"output column {column} has the top score (the model gives no grade labels)"
+        return f"{where} has the top score (the model gives no grade labels)"
     if _is_category(label):
-        return f"CAD-RADS {str(label).upper()} (output column {column})"
-    return f"grade {str(label)!r} (output column {column})"
+        return f"CAD-RADS {str(label).upper()} ({where})"
+    return f"grade {str(label)!r} ({where})"
 
 
 def verdict(prediction):

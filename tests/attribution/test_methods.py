@@ -91,10 +91,19 @@ def test_smoothgrad_equals_captum_noise_tunnel(case):
     torch.testing.assert_close(ours, ref, **TOL)
 
 
+def _resize_geometry(shape_in, shape_layer):
+    """Cell centres of a plain resize (interpolate, align_corners=False): stride = in / layer,
+    offset = (stride - 1) / 2. Given explicitly, because without it the layers' own geometry is
+    used (test_gradcam_geometry.py), which captum's interpolate does not model."""
+    stride = [a / b for a, b in zip(shape_in, shape_layer)]
+    return {"layer_stride": stride, "layer_offset": [(st - 1) / 2 for st in stride]}
+
+
 def test_gradcam_equals_captum_layer_gradcam_interpolated(case):
     w, forward, x, k, layer_name, layer = case
-    ours = attribute(w, x, method="gradcam", target=_target(case), layer=layer_name)
     cam = LayerGradCam(forward, layer).attribute(x.clone(), target=k, relu_attributions=True)
+    ours = attribute(w, x, method="gradcam", target=_target(case), layer=layer_name,
+                     **_resize_geometry(x.shape[2:], cam.shape[2:]))
     ref = LayerAttribution.interpolate(cam, tuple(x.shape[2:]), interpolate_mode="trilinear")
     torch.testing.assert_close(ours, ref.reshape(x.shape), **TOL)
 
@@ -172,8 +181,9 @@ def test_gradcam_2d_layer_per_cross_section_equals_captum():
     net = h.tm.PerSection2D()
     w = wrap_model(net)
     x = h.patient(s=3, n=4, h=6, w=6, seed=8)
-    ours = attribute(w, x, method="gradcam", target=1, layer="conv")
     cam = LayerGradCam(net, net.conv).attribute(x.clone(), target=1, relu_attributions=True)
+    ours = attribute(w, x, method="gradcam", target=1, layer="conv",
+                     **_resize_geometry((6, 6), cam.shape[2:]))
     ref = LayerAttribution.interpolate(cam, (6, 6), interpolate_mode="bilinear")
     torch.testing.assert_close(ours, ref.reshape(x.shape), **TOL)
 

@@ -92,3 +92,19 @@ def test_load_errors(tmp_path):
     torch.save({"x": Path("a")}, tmp_path / "evil.pt")
     with pytest.raises(ModelError, match="plain state_dict"):
         load_model(f"{path}:SmallConv", weights=tmp_path / "evil.pt")
+
+
+# torch.jit.load warns that TorchScript is deprecated; as an error here it would be the cause
+@pytest.mark.filterwarnings("ignore::DeprecationWarning:torch.jit")
+def test_load_errors_keep_the_cause_not_only_its_class(tmp_path):
+    (tmp_path / "junk.pt").write_bytes(b"not a model")
+    with pytest.raises(ModelError, match=r"not a TorchScript file \(RuntimeError: \w+"):
+        load_model(tmp_path / "junk.pt")
+    (tmp_path / "broken.py").write_text(
+        "def build():\n    raise ValueError('depth 5 is not supported\\nuse depth 3')\n")
+    with pytest.raises(ModelError, match=r"ValueError: depth 5 is not supported use depth 3"):
+        load_model(f"{tmp_path / 'broken.py'}:build")
+    path = _factory(tmp_path)
+    torch.save({"conv.weight": torch.zeros(1)}, tmp_path / "bad.pt")
+    with pytest.raises(ModelError, match=r"do not fit the model \(RuntimeError: .*Missing key"):
+        load_model(f"{path}:SmallConv", weights=tmp_path / "bad.pt")

@@ -69,3 +69,37 @@ def test_auto_on_a_dict_output_needs_the_entry_named():
     assert resolve_target(out, "grade:auto", grade_labels=CATEGORIES).label == "grade:expected"
     with pytest.raises(InputError, match="name one"):
         resolve_target(out, "auto", grade_labels=CATEGORIES)
+
+
+def test_tuple_and_list_targets_name_an_entry_by_index():
+    logits = np.array([[0.3, -1.0, 2.0, 0.5, 0.0, -0.2, 1.1]])
+    out = (torch.tensor(logits), torch.tensor([[7.0, -2.0]]))
+    assert resolve_target(out, "1:0")(out).tolist() == [7.0]
+    assert resolve_target(list(out), "1:predicted").label == "1:0"
+    # the expected category of entry 0 against scipy.special.softmax, CAD-RADS 2.0 ranks
+    t = resolve_target(out, "0:expected", grade_labels=CATEGORIES)
+    want = float((softmax(logits[0]) * np.arange(7)).sum())
+    assert float(t(out)) == pytest.approx(want, rel=1e-12)
+    with pytest.raises(InputError, match=r"no output entry 2; have \[0, 1\]"):
+        resolve_target(out, "2:0")
+    with pytest.raises(InputError, match="by its index"):
+        resolve_target(out, "grade:0")
+
+
+def test_several_entries_unnamed_is_an_error_with_a_real_key():
+    out = {"stenosis": torch.tensor([[0.0, 3.0]]), "calcium": torch.tensor([[7.0]])}
+    with pytest.raises(InputError, match=r"--target 'stenosis:0' or 'stenosis:expected'"):
+        resolve_target(out, "auto")
+    with pytest.raises(InputError, match=r"--target '0:0' or '0:expected'"):
+        resolve_target((out["calcium"], out["stenosis"]), "predicted")
+
+
+def test_a_one_entry_output_is_explained_with_a_note():
+    from explain.model.targets import target_note
+
+    out = {"logits": torch.tensor([[0.0, 3.0]])}
+    t = resolve_target(out, "predicted")
+    assert t.label == "logits:1"
+    assert "one entry 'logits'" in target_note(out, "predicted", t)
+    assert target_note(out, "logits:1", resolve_target(out, "logits:1")) is None
+    assert target_note(out["logits"], "predicted", resolve_target(out["logits"], "predicted")) is None
