@@ -16,17 +16,6 @@ from .wrap import wrap_model
 __all__ = ["load_model", "load_weights"]
 
 
-def _reason(exc, *, limit=300):
-    """One line saying why torch refused: the unpickler's own reason where torch gives one."""
-    text = str(exc)
-    found = re.search(r"WeightsUnpickler error:\s*(.+?)(?:\n\n|$)", text, re.S)
-    if found:
-        text = found.group(1).split(" Please use ")[0]
-    text = re.sub(r"\x1b\[[0-9;]*m", "", text)
-    text = "; ".join(" ".join(line.split()) for line in text.splitlines() if line.strip())
-    return text if len(text) <= limit else text[: limit - 3] + "..."
-
-
 def load_weights(module, weights):
     """Load a state_dict file into ``module`` with ``torch.load(..., weights_only=True)``."""
     path = Path(weights)
@@ -36,7 +25,7 @@ def load_weights(module, weights):
         state = torch.load(path, map_location="cpu", weights_only=True)
     except Exception as exc:  # noqa: BLE001 - any unpickling failure is the user's file
         raise ModelError(
-            f"weights {path}: cannot be read as a plain state_dict ({_reason(exc)}); save it with "
+            f"weights {path}: cannot be read as a plain state_dict ({_cause(exc)}); save it with "
             "torch.save(model.state_dict(), path)"
         ) from None
     if isinstance(state, dict) and "state_dict" in state and isinstance(state["state_dict"], dict):
@@ -44,14 +33,20 @@ def load_weights(module, weights):
     try:
         module.load_state_dict(state)
     except (RuntimeError, TypeError, AttributeError) as exc:
-        raise ModelError(f"weights {path}: do not fit the model ({_reason(exc)})") from None
+        raise ModelError(f"weights {path}: do not fit the model ({_cause(exc)})") from None
     return module
 
 
 def _cause(exc, limit=300):
     """``"Class: message"`` on one line (its lines joined, cut at ``limit`` characters): the
-    cause a one-line error can carry."""
-    text = " ".join(line.strip() for line in str(exc).splitlines() if line.strip())
+    cause a one-line error can carry. For torch's refusals of unsafe pickles, the unpickler's own
+    reason, without the advice on ``weights_only`` that does not apply here."""
+    text = str(exc)
+    found = re.search(r"WeightsUnpickler error:\s*(.+?)(?:\n\n|$)", text, re.S)
+    if found:
+        text = found.group(1).split(" Please use ")[0]
+    text = re.sub(r"\x1b\[[0-9;]*m", "", text)
+    text = " ".join(line.strip() for line in text.splitlines() if line.strip())
     if len(text) > limit:
         text = text[: limit - 3].rstrip() + "..."
     return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
