@@ -203,19 +203,31 @@ def _spacing(offsets, slices, field):
 
 
 def _hu(path, field):
-    """One slice's stored values rescaled to HU (DICOM PS3.3 C.11.1), float32 (rows, cols)."""
+    """One slice's stored values rescaled to HU (DICOM PS3.3 C.11.1), float32 (rows, cols).
+
+    Pixel data pydicom cannot decode (a compressed transfer syntax without its plugin) is
+    decoded by SimpleITK's GDCM reader instead, which applies the same rescale.
+    """
     import pydicom
 
     ds = pydicom.dcmread(path)
     try:
         stored = ds.pixel_array
-    except Exception as exc:  # noqa: BLE001 - pydicom raises many types for undecodable data
-        raise InputError(f"{field}: cannot decode the pixel data of {path.name} (transfer syntax "
-                         f"{ds.file_meta.get('TransferSyntaxUID', '?')}: {str(exc)[:120]}); "
-                         "convert the series to uncompressed DICOM") from None
+    except Exception:  # noqa: BLE001 - pydicom raises many types for undecodable data
+        return _hu_by_gdcm(path, ds, field)
     slope = float(ds.get("RescaleSlope", 1) or 1)
     intercept = float(ds.get("RescaleIntercept", 0) or 0)
     return (stored.astype(np.float64) * slope + intercept).astype(np.float32)
+
+
+def _hu_by_gdcm(path, ds, field):
+    try:
+        values = sitk.GetArrayFromImage(sitk.ReadImage(str(path), sitk.sitkFloat32))
+    except RuntimeError:
+        raise InputError(f"{field}: cannot decode the pixel data of {path.name} (transfer syntax "
+                         f"{ds.file_meta.get('TransferSyntaxUID', '?')}); convert the series to "
+                         "uncompressed DICOM") from None
+    return values.reshape(values.shape[-2:]).astype(np.float32)
 
 
 def read_dicom_series(folder, *, field="image", series_instance_uid=None):

@@ -198,3 +198,16 @@ def test_cohort_as_dicom_reads_back(tmp_path):
     case = load_case(tmp_path / "cohort" / "case-0000" / "case.json")
     assert table.is_file() and case.dicom is not None
     assert len(case.dicom.sop_instance_uids) == case.image.GetSize()[2]
+
+
+def test_undecodable_by_pydicom_falls_back_to_gdcm(tmp_path, monkeypatch):
+    # SimpleITK's GDCM reader decodes what pydicom cannot (compressed data without a plugin);
+    # it applies the same rescale (DICOM PS3.3 C.11.1), so the volume must not change.
+    _ct_small_series(tmp_path / "s", n=3, rescale=[(1, -1024), (2, -1000), (1, 0)])
+    expected = sitk.GetArrayFromImage(read_image(tmp_path / "s"))
+
+    def undecodable(self):
+        raise NotImplementedError("no pixel data handler for this transfer syntax")
+
+    monkeypatch.setattr(pydicom.dataset.Dataset, "pixel_array", property(undecodable))
+    np.testing.assert_allclose(sitk.GetArrayFromImage(read_image(tmp_path / "s")), expected)
