@@ -2,6 +2,7 @@
 # Mutation testing (mutmut 3) of one module group at a time, in a scratch copy of the tree.
 #
 #   tools/mutation.sh grading|mapping|geometry|attribution [--max-children N]
+#   (attribution-trace and attribution-maps split the attribution group in two shorter runs)
 #
 # Each group mutates only its own files and runs only the fast tests that exercise them, so a
 # run stays bounded on a shared machine (it runs under `nice -n 15`). The scratch copy lives in
@@ -10,7 +11,7 @@
 # (killed + timeout) / (all - skipped). Record the result in docs/testing.md.
 set -euo pipefail
 
-group="${1:?usage: tools/mutation.sh grading|mapping|geometry|attribution [--max-children N]}"
+group="${1:?usage: tools/mutation.sh grading|mapping|geometry|attribution[-trace|-maps] [--max-children N]}"
 shift
 children=2
 if [[ "${1:-}" == "--max-children" ]]; then children="${2:?}"; fi
@@ -38,6 +39,13 @@ case "$group" in
     tests='"tests/attribution", "tests/model/test_wrap.py"'
     # the 7-segment brute force (5040 orders on the whole model) repeats what 1, 3 and 5 check
     deselect=', "--deselect", "tests/attribution/test_trace.py::test_exact_shapley_equals_brute_force_over_permutations[7]"' ;;
+  attribution-trace)   # the culprit rule alone, for a shorter run
+    only='"explain/attribution/trace.py"'
+    tests='"tests/attribution/test_trace.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py"'
+    deselect=', "--deselect", "tests/attribution/test_trace.py::test_exact_shapley_equals_brute_force_over_permutations[7]"' ;;
+  attribution-maps)    # the saliency methods, without trace.py
+    only='"explain/attribution/[!t]*.py"'
+    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/model/test_wrap.py"' ;;
   *) echo "unknown group '$group': use grading, mapping, geometry or attribution" >&2; exit 2 ;;
 esac
 

@@ -211,3 +211,19 @@ def test_lumen_label_of_an_axis_aligned_tube_crossing_the_image_border(a, b):
     want, margin = _analytic_tube(image, a, b, 1.3)
     assert want.any()
     assert np.array_equal(got[~margin], want[~margin])
+
+
+def test_lumen_label_value_bounds_and_messages():
+    from explain.mapping import lumen_label
+
+    image = _m.make_image(size=(10, 10, 10), rotation_deg=0.0, origin=(0.0, 0.0, 0.0),
+                          spacing=(0.5, 0.5, 0.5))
+    line = np.array([[2.5, 2.5, 0.5], [2.5, 2.5, 4.0]])
+    assert set(np.unique(sitk.GetArrayFromImage(lumen_label(image, line, 1.0, label=255)))) == {0, 255}
+    for bad in (0, 256):
+        with pytest.raises(InputError, match=f"label: expected 1-255, got {bad}"):
+            lumen_label(image, line, 1.0, label=bad)
+    with pytest.raises(InputError, match=r"radius_mm: expected finite radii >= 0 in mm"):
+        lumen_label(image, line, [1.0, float("nan")])
+    with pytest.raises(InputError, match=r"centerline_mm: expected \(n >= 2, 3\) points"):
+        lumen_label(image, line[:, :2])
