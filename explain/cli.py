@@ -318,6 +318,7 @@ def _add_sanity_parser(sub):
     _add_sanity_options(exp, prefix="sanity-")
     exp.set_defaults(run=_explain_with_sanity(exp.get_default("run")))
 
+
 def build_parser():
     parser = argparse.ArgumentParser(
         prog="culprit-lens",

@@ -51,6 +51,16 @@ MODEL_SOURCE = textwrap.dedent('''
 
     def raising():
         raise ValueError("no weights here")
+
+    class NoWeights(torch.nn.Module):
+        """Darkest HU of each segment, max over segments: no parameters at all."""
+        cross_section_spec = {"points": 3, "size": 5, "pixel_mm": 1.0}
+
+        def forward(self, x):
+            return torch.max(-x.amin(dim=(2, 3, 4))[..., None], dim=1).values
+
+    def no_weights():
+        return NoWeights()
 ''')
 
 
@@ -136,6 +146,51 @@ def _audit_twice(kit):
             "--workers", "0", "--quiet", "--methods", "gradient"]
 
 
+def _dicom(kit, change=None, *, manifest=None):
+    """The kit's CT written as a DICOM series in ct/, changed by ``change(files)``."""
+    import pydicom
+
+    from explain.phantom.dicom_writer import write_ct_series
+
+    image = sitk.ReadImage(str(kit.root / "image.nii.gz"))
+    write_ct_series(image, kit.root / "ct", case_id="errors-doc", seed=1)
+    files = sorted((kit.root / "ct").glob("*.dcm"))
+    if change:
+        change(files, pydicom)
+    return kit.explain(kit.case(image="ct", **(manifest or {})))
+
+
+def _second_series(kit):
+    def change(files, pydicom):
+        from explain.phantom.dicom_writer import write_ct_series
+
+        image = sitk.ReadImage(str(kit.root / "image.nii.gz"))
+        write_ct_series(image, kit.root / "other", case_id="errors-doc", seed=2)
+        for path in (kit.root / "other").glob("*.dcm"):
+            path.rename(kit.root / "ct" / f"b-{path.name}")
+    return _dicom(kit, change)
+
+
+def _move_slice(index, by_mm=None, *, onto=None):
+    def change(files, pydicom):
+        ds = pydicom.dcmread(files[index])
+        position = [float(v) for v in ds.ImagePositionPatient]
+        if onto is not None:
+            position = [float(v) for v in pydicom.dcmread(files[onto]).ImagePositionPatient]
+        else:
+            position[2] += by_mm
+        ds.ImagePositionPatient = position
+        ds.save_as(files[index])
+    return change
+
+
+def _tilt(files, pydicom):
+    for path in files:
+        ds = pydicom.dcmread(path)
+        ds.GantryDetectorTilt = 12.0
+        ds.save_as(path)
+
+
 def _not_empty(kit):
     (kit.root / "out").mkdir()
     (kit.root / "out" / "old.txt").write_text("x")
@@ -172,6 +227,12 @@ RECIPES = {
     "image-not-3d": lambda k: _mha_with(k, sitk.Image([8, 8], sitk.sitkInt16)),
     "image-not-scalar": lambda k: _mha_with(k, sitk.Image([8, 8, 8], sitk.sitkVectorFloat32, 3)),
     "image-nan": _nan_image,
+    "dicom-several-series": _second_series,
+    "dicom-series-absent": lambda k: _dicom(k, manifest={"series_instance_uid": "1.2.3.4"}),
+    "dicom-missing-slices": lambda k: _dicom(k, lambda files, _: files[10].unlink()),
+    "dicom-uneven": lambda k: _dicom(k, _move_slice(10, 0.2)),
+    "dicom-same-position": lambda k: _dicom(k, _move_slice(10, onto=9)),
+    "dicom-tilt": lambda k: _dicom(k, _tilt),
     "dicom-empty": lambda k: (k.root.joinpath("dicom").mkdir(), k.explain(k.case(image="dicom")))[1],
     # centerlines
     "centerline-missing": lambda k: k.explain(k.case(_segments(lambda s: s[1].update(centerline="no.csv")))),
@@ -220,6 +281,16 @@ RECIPES = {
     "target-expected": lambda k: k.explain(None, None, "--grade-labels", "a,b,c",
                                            "--target", "expected"),
     "sampling-missing": lambda k: k.explain(None, f"{k.root / 'models.py'}:no_spec"),
+    "quality-negative": lambda k: k.explain(None, None, "--tolerance-mm", "-1"),
+    "flag-unknown": lambda k: k.explain(None, None, "--flag-threshold", "shiny=0.3"),
+    "flag-syntax": lambda k: k.explain(None, None, "--flag-threshold", "on_border"),
+    # sanity
+    "sanity-no-parameters": lambda k: ["sanity", "--case", k.case(), "--model",
+                                       f"{k.root / 'models.py'}:no_weights", "--out", k.out,
+                                       "--quiet", "--methods", "gradient"],
+    "sanity-rotations": lambda k: ["sanity", "--case", k.case(), "--model",
+                                   f"{k.root / 'models.py'}:tiny", "--out", k.out, "--quiet",
+                                   "--rotations", "0,ninety"],
     # output
     "out-not-empty": _not_empty,
     "out-not-folder": lambda k: (k.write("out", "x"), k.explain())[1],
