@@ -19,13 +19,14 @@ from ..errors import InputError, ModelError
 from ..mapping import locate
 from .wording import grade_phrase
 
-__all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW", "SegmentResult", "Explanation", "explain_case"]
+__all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW_MM", "OCCLUSION_WINDOW_PIXELS", "SegmentResult", "Explanation", "explain_case"]
 
 #: Methods computed when none are named: the two the localisation checks use, and Grad-CAM.
 DEFAULT_METHODS = ("integrated_gradients", "occlusion", "gradcam")
 
-#: Occlusion window: cross-sections along the arc x pixels x pixels (clipped to the stack).
-OCCLUSION_WINDOW = (4, 8, 8)
+#: Occlusion window: mm along the arc (converted per segment), pixels x pixels in-plane.
+OCCLUSION_WINDOW_MM = 4.0
+OCCLUSION_WINDOW_PIXELS = 8
 
 #: How each map's profile is aggregated per cross-section (see :mod:`explain.mapping`).
 #: Gradients are sensitivities whose sign says which way HU would have to move, so their
@@ -213,23 +214,38 @@ def _check_methods(methods):
     return methods
 
 
-def method_settings(method, shape, *, seed):
+def method_settings(method, shape, *, seed, arc_step_mm=None):
     """The options each method runs with (recorded in the report's settings).
 
-    Occlusion slides a window of :data:`OCCLUSION_WINDOW`, 4 cross-sections x 8 x 8 pixels
-    (clipped to the stack's shape ``(N, H, W)``), by 2 cross-sections along the arc and a whole
-    window in-plane: overlapping along the vessel locates the peak to about two cross-sections,
-    at a cost a CPU bears for a full tree (about 2000 single-segment encoder runs for 15 segments of 32 x 24 x 24).
+    Occlusion hides :data:`OCCLUSION_WINDOW_MM` (4 mm) of arc at a time, whatever the segment's
+    length: with ``arc_step_mm`` (S,), the spacing of each segment's cross-sections in mm, the
+    window becomes ``round(4 mm / step)`` cross-sections on each segment (at least 1, at most N;
+    :func:`explain.attribution.occlusion.arc_windows`), slid by half a window along the arc and
+    a whole window of :data:`OCCLUSION_WINDOW_PIXELS` pixels (clipped to ``(H, W)``) in-plane.
+    The windows and strides are recorded per segment beside the mm they came from. SmoothGrad's
+    noise is a share of the HU range of the pixels inside the image
+    (:func:`explain.attribution.gradients.inside_range_hu`), given here as ``range_hu``.
     """
+    from ..attribution.occlusion import arc_windows
+
     n, h, w = shape
     if method == "integrated_gradients":
         return {"steps": 50}
     if method == "occlusion":
-        window = tuple(min(a, b) for a, b in zip(OCCLUSION_WINDOW, (n, h, w)))
-        return {"window": window, "stride": (max(1, window[0] // 2), window[1], window[2])}
+        steps = np.full(1, 1.0) if arc_step_mm is None else np.asarray(arc_step_mm, float)
+        pixels = (min(OCCLUSION_WINDOW_PIXELS, h), min(OCCLUSION_WINDOW_PIXELS, w))
+        windows, strides = arc_windows(OCCLUSION_WINDOW_MM, steps, n, pixels=pixels)
+        return {"window_mm": OCCLUSION_WINDOW_MM, "arc_step_mm": [float(v) for v in steps],
+                "window": [list(v) for v in windows], "stride": [list(v) for v in strides]}
     if method == "smoothgrad":
         return {"n": 50, "noise": 0.15, "seed": seed}
     return {}
+
+
+def arc_steps(sections):
+    """Spacing of consecutive cross-sections of each segment, mm: ``(S,)`` float64."""
+    return np.array([float(cs.arc_mm[-1] - cs.arc_mm[0]) / max(cs.shape[0] - 1, 1)
+                     for cs in sections.sections])
 
 
 def _sampling(model, points, size, pixel_mm):
@@ -301,7 +317,7 @@ def _check_arguments(model, methods, seed, baseline_hu):
 
 
 def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, seed, progress,
-                   notes):
+                   notes, arc_step_mm=None):
     """One map per method, (S, N, H, W) float32, and the options each used; notes appended."""
     import torch
 
@@ -310,7 +326,7 @@ def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, see
     maps, method_options = {}, {}
     for n, method in enumerate(methods, 1):
         _say(progress, f"saliency {n}/{len(methods)}: {method}")
-        options = method_settings(method, stack_shape, seed=seed)
+        options = method_settings(method, stack_shape, seed=seed, arc_step_mm=arc_step_mm)
         method_options[method] = options
         torch.manual_seed(seed)
         if method == "integrated_gradients":
@@ -387,7 +403,8 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     notes = list(case.notes)
     maps, method_options = _saliency_maps(model, x, methods, resolved, sections.values.shape[1:],
                                           baseline_hu=baseline_hu, seed=int(seed),
-                                          progress=progress, notes=notes)
+                                          progress=progress, notes=notes,
+                                          arc_step_mm=arc_steps(sections))
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
