@@ -122,10 +122,18 @@ class Explanation:
         Index into ``segments`` of the segment with the largest Shapley value.
     margin : float
         Its Shapley value minus the second largest.
+    tied_with : tuple of int
+        SCCT numbers of segments whose Shapley value is level with the culprit's (within
+        :data:`explain.attribution.trace.TIE_RTOL` of ``|v(all) - v(none)|``); the culprit is
+        then the lowest SCCT number among them, and the report says so.
     maps : dict of str to (S, N, H, W) float32
         Each method's attribution on the cross-sections.
     cautions : tuple of str
     notes : tuple of str
+    warnings : tuple of str
+        Findings that should change how far the explanation is trusted (for example an
+        Integrated Gradients completeness gap above
+        :data:`explain.attribution.integrated.COMPLETENESS_SHARE`).
     """
 
     case: object = field(repr=False)
@@ -140,6 +148,8 @@ class Explanation:
     maps: dict = field(default_factory=dict, repr=False)
     cautions: tuple = CAUTIONS
     notes: tuple = ()
+    tied_with: tuple = ()
+    warnings: tuple = ()
 
     @property
     def case_id(self):
@@ -214,7 +224,7 @@ def _check_methods(methods):
     return methods
 
 
-def method_settings(method, shape, *, seed, arc_step_mm=None):
+def method_settings(method, shape, *, seed, arc_step_mm=None, range_hu=None):
     """The options each method runs with (recorded in the report's settings).
 
     Occlusion hides :data:`OCCLUSION_WINDOW_MM` (4 mm) of arc at a time, whatever the segment's
@@ -238,7 +248,10 @@ def method_settings(method, shape, *, seed, arc_step_mm=None):
         return {"window_mm": OCCLUSION_WINDOW_MM, "arc_step_mm": [float(v) for v in steps],
                 "window": [list(v) for v in windows], "stride": [list(v) for v in strides]}
     if method == "smoothgrad":
-        return {"n": 50, "noise": 0.15, "seed": seed}
+        options = {"n": 50, "noise": 0.15, "seed": seed}
+        if range_hu is not None:
+            options["range_hu"] = [float(v) for v in range_hu]
+        return options
     return {}
 
 
@@ -246,6 +259,15 @@ def arc_steps(sections):
     """Spacing of consecutive cross-sections of each segment, mm: ``(S,)`` float64."""
     return np.array([float(cs.arc_mm[-1] - cs.arc_mm[0]) / max(cs.shape[0] - 1, 1)
                      for cs in sections.sections])
+
+
+def _inside_range(methods, sections, case):
+    """HU range of the pixels inside the CT, for SmoothGrad's noise (None when not needed)."""
+    if "smoothgrad" not in methods:
+        return None
+    from ..attribution.gradients import inside_range_hu
+
+    return inside_range_hu(sections.sections, case.image)
 
 
 def _sampling(model, points, size, pixel_mm):
@@ -317,24 +339,27 @@ def _check_arguments(model, methods, seed, baseline_hu):
 
 
 def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, seed, progress,
-                   notes, arc_step_mm=None):
+                   notes, arc_step_mm=None, warnings=None, range_hu=None):
     """One map per method, (S, N, H, W) float32, and the options each used; notes appended."""
     import torch
 
     from ..attribution import attribute
+    from ..attribution.integrated import completeness_finding
 
+    warnings = notes if warnings is None else warnings
     maps, method_options = {}, {}
     for n, method in enumerate(methods, 1):
         _say(progress, f"saliency {n}/{len(methods)}: {method}")
-        options = method_settings(method, stack_shape, seed=seed, arc_step_mm=arc_step_mm)
+        options = method_settings(method, stack_shape, seed=seed, arc_step_mm=arc_step_mm,
+                                  range_hu=range_hu)
         method_options[method] = options
         torch.manual_seed(seed)
         if method == "integrated_gradients":
             result, delta = attribute(model, x, method=method, target=resolved,
                                       baseline_hu=baseline_hu, return_convergence_delta=True,
                                       **options)
-            notes.append(f"integrated_gradients: completeness gap (convergence delta) "
-                         f"{float(delta[0]):.3g} target units")
+            text, warn = completeness_finding(float(result.sum()), float(delta[0]))
+            (warnings if warn else notes).append(text)
         else:
             result = attribute(model, x, method=method, target=resolved,
                                baseline_hu=baseline_hu, **options)
@@ -400,24 +425,19 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     _say(progress, "tracing segments (winning channels, leave-one-out, Shapley)")
     trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed))
 
-    notes = list(case.notes)
+    notes = list(case.notes) + _trace_notes(trace, sections.segment_ids)
+    warnings = []
     maps, method_options = _saliency_maps(model, x, methods, resolved, sections.values.shape[1:],
                                           baseline_hu=baseline_hu, seed=int(seed),
                                           progress=progress, notes=notes,
-                                          arc_step_mm=arc_steps(sections))
+                                          arc_step_mm=arc_steps(sections), warnings=warnings,
+                                          range_hu=_inside_range(methods, sections, case))
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
     label = resolved.label
-    settings = {
-        "methods": list(methods), "target": target if isinstance(target, (int, str)) else label,
-        **sampling, "rotation_deg": 0.0, "baseline_hu": baseline_hu, "seed": int(seed),
-        "method_options": method_options, "profile_aggregate": {m: aggregate_of(m) for m in methods},
-        "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
-        "extent_rule": "contiguous run at or above half the peak profile value",
-        "culprit_rule": "largest Shapley value over segments",
-        "library_version": __version__,
-    }
+    settings = _settings(methods, target, label, sampling, baseline_hu, seed, method_options,
+                         trace)
     return Explanation(
         case=case, sections=sections,
         model={"name": getattr(model, "name", None),
@@ -428,7 +448,49 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
                 "value_all": float(trace.value_all), "value_none": float(trace.value_empty)},
         segments=segments, culprit_index=int(trace.culprit), margin=float(trace.margin),
         maps=maps, notes=tuple(notes),
+        tied_with=tuple(int(sections.segment_ids[i]) for i in trace.tied),
+        warnings=tuple(warnings),
     )
+
+
+def _settings(methods, target, label, sampling, baseline_hu, seed, method_options, trace):
+    """Every option and rule the explanation used, for the report's settings."""
+    from ..attribution.trace import TIE_RTOL
+
+    return {
+        "methods": list(methods), "target": target if isinstance(target, (int, str)) else label,
+        **sampling, "rotation_deg": 0.0, "baseline_hu": baseline_hu, "seed": int(seed),
+        "method_options": method_options, "profile_aggregate": {m: aggregate_of(m) for m in methods},
+        "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
+        "extent_rule": "contiguous run at or above half the peak profile value",
+        "culprit_rule": f"largest Shapley value over segments; values within {TIE_RTOL:g} x "
+                        "|v(all) - v(none)| of it are a tie, named at the lowest SCCT number",
+        "shapley": _shapley_kind(trace), "coalition_values": trace.value_dtype,
+        "library_version": __version__,
+    }
+
+
+def _shapley_kind(trace):
+    """``"exact"`` (all 2^S coalitions) or how the values were sampled."""
+    if trace.shapley_stderr is None:
+        return "exact over all coalitions of segments"
+    return (f"sampled: {trace.n_permutations} permutations (seed {trace.seed}); standard error "
+            "per segment in shapley_stderr")
+
+
+def _trace_notes(trace, segment_ids):
+    """Notes on a culprit tie and on the precision of the coalition values."""
+    from ..attribution.trace import TIE_RTOL
+
+    notes = []
+    if trace.tied:
+        level = ", ".join(str(segment_ids[i]) for i in trace.tied)
+        notes.append(f"culprit tie: segment(s) {level} have a Shapley value level with segment "
+                     f"{segment_ids[trace.culprit]} (within {TIE_RTOL:g} of |v(all) - v(none)|); "
+                     "the lowest SCCT number is named, but the model does not single one out")
+    if trace.precision_note:
+        notes.append(trace.precision_note)
+    return notes
 
 
 def _segment_results(case, sections, trace, maps):

@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from ..io import check_output_dir, write_image, write_text
-from ..mapping import lumen_label, overlay
+from ..mapping import coverage, curve_lumen_label, overlay
 from .figures import write_figures
 from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
@@ -39,7 +39,9 @@ def write_attributions(explanation, path):
 
 
 def write_overlays(explanation, folder):
-    """overlays/<method>.nii.gz (maps in the CT's geometry) and overlays/culprit.nii.gz."""
+    """overlays/<method>.nii.gz (maps in the CT's geometry), overlays/coverage.nii.gz (the splat
+    weight: 0 where no cross-section reached) and overlays/culprit.nii.gz (the culprit's lumen
+    around the same smooth centerline that sampling follows)."""
     e = explanation
     folder = Path(folder)
     image = e.case.image
@@ -47,8 +49,9 @@ def write_overlays(explanation, folder):
     for method in e.methods:
         volume = overlay(list(e.maps[method]), e.sections.sections, like=image)
         write_image(volume, folder / names[method])
+    write_image(coverage(e.sections.sections, like=image), folder / names["coverage"])
     seg = e.case.segment(e.culprit.id)
-    label = lumen_label(image, seg.centerline.points_mm, seg.radius_mm, label=e.culprit.id)
+    label = curve_lumen_label(image, seg.centerline, seg.radius_mm, label=e.culprit.id)
     write_image(label, folder / names["culprit"])
     return names
 

@@ -64,7 +64,8 @@ def _reference_dict(reference):
 
 def overlay_files(methods):
     """Overlay file names, relative to the output folder."""
-    return {**{m: f"overlays/{m}.nii.gz" for m in methods}, "culprit": "overlays/culprit.nii.gz"}
+    return {**{m: f"overlays/{m}.nii.gz" for m in methods}, "coverage": "overlays/coverage.nii.gz",
+            "culprit": "overlays/culprit.nii.gz"}
 
 
 def explanation_dict(explanation, *, figures=()):
@@ -95,12 +96,14 @@ def explanation_dict(explanation, *, figures=()):
         "target": dict(e.target),
         "culprit": {"segment_id": culprit.id, "segment_abbr": culprit.abbr,
                     "segment_name": culprit.name, "territory": culprit.territory,
-                    "shapley": culprit.shapley, "margin": e.margin, "where": where},
+                    "shapley": culprit.shapley, "margin": e.margin,
+                    "tied_with": list(getattr(e, "tied_with", ())), "where": where},
         "segments": segments,
         "reference": _reference_dict(getattr(e.case, "reference", None)),
         "files": {**FILES, "overlays": overlay_files(e.methods), "figures": list(figures)},
         "cautions": list(e.cautions),
         "notes": list(e.notes),
+        "warnings": list(getattr(e, "warnings", ())),
     }
     return _plain(out)
 
