@@ -150,10 +150,12 @@ def contribution_figure(explanation):
     y = np.arange(len(segs))[::-1]
     shap = [s.shapley for s in segs]
     loo = [s.leave_one_out for s in segs]
-    ax.barh(y + 0.2, shap, height=0.38, color="#2c7fb8", label="Shapley value")
-    ax.barh(y - 0.2, loo, height=0.38, color="#bdbdbd", label="leave-one-out")
     stderr = [s.shapley_stderr for s in segs]
-    if all(v is not None for v in stderr):
+    sampled = all(v is not None for v in stderr)
+    how = "Shapley value, sampled (bars: 1 standard error)" if sampled else "Shapley value, exact"
+    ax.barh(y + 0.2, shap, height=0.38, color="#2c7fb8", label=how)
+    ax.barh(y - 0.2, loo, height=0.38, color="#bdbdbd", label="leave-one-out")
+    if sampled:
         ax.errorbar(shap, y + 0.2, xerr=stderr, fmt="none", ecolor="black", lw=0.8)
     ax.set_yticks(y, [s.label for s in segs], fontsize=8)
     for tick, index in zip(ax.get_yticklabels(), range(len(segs))):
