@@ -242,7 +242,10 @@ def method_settings(method, shape, *, seed, arc_step_mm=None, range_hu=None):
     if method == "integrated_gradients":
         return {"steps": 50}
     if method == "occlusion":
-        steps = np.full(1, 1.0) if arc_step_mm is None else np.asarray(arc_step_mm, float)
+        if arc_step_mm is None:
+            raise InputError("method_settings('occlusion'): needs arc_step_mm, the spacing of "
+                             "each segment's cross-sections in mm (explanation.arc_steps)")
+        steps = np.asarray(arc_step_mm, dtype=np.float64)
         pixels = (min(OCCLUSION_WINDOW_PIXELS, h), min(OCCLUSION_WINDOW_PIXELS, w))
         windows, strides = arc_windows(OCCLUSION_WINDOW_MM, steps, n, pixels=pixels)
         return {"window_mm": OCCLUSION_WINDOW_MM, "arc_step_mm": [float(v) for v in steps],
