@@ -128,7 +128,8 @@ def profile_figure(explanation, method):
     axes[-1].set_xlabel("arc length, segments laid end to end (mm); dashed lines: segment ends")
     what = "absolute" if _aggregate(e, method) == "absolute" else "positive"
     fig.supylabel(f"{what} attribution per mm of arc ({_units(method, e)} / mm)", fontsize=9)
-    fig.suptitle(f"{method}: {what} attribution per mm of arc along each vessel"
+    fig.suptitle(f"{method}: {what} attribution per mm of arc along each vessel "
+                 f"({_units(method, e)} / mm)"
                  + ("; shaded: reference lesions" if lesions else ""), fontsize=10)
     fig.tight_layout(rect=(0, 0, 1, 0.97))
     return fig
@@ -240,6 +241,8 @@ def tree_figure(explanation):
                 ax.plot(curve[:, 0], curve[:, 1], color=_CULPRIT_CASING, lw=14,
                         solid_capstyle="round")
                 ax.plot(curve[:, 0], curve[:, 1], color="white", lw=10, solid_capstyle="round")
+            else:  # a thin rim keeps near-zero (sand) segments visible on white
+                ax.plot(curve[:, 0], curve[:, 1], color="#b9b2a3", lw=8.2, solid_capstyle="round")
             ax.plot(curve[:, 0], curve[:, 1], color=cmap(norm(s.shapley)), lw=7,
                     solid_capstyle="round")
             label_colour = "black"

@@ -117,7 +117,8 @@ def _cut_panel(ax, cs, ct, m, row, window, vmax, signed):
     ax.imshow(rgba, origin="lower", extent=box, aspect="auto", interpolation="nearest")
     ax.set_xlabel("arc length from the segment's start (mm)")
     ax.set_ylabel("u offset (mm)", fontsize=8.5)
-    ax.set_title(f"straightened cut along u through pixel row {row}", fontsize=8.5, loc="right")
+    ax.text(0.008, 0.04, f"straightened cut along u through pixel row {row}", fontsize=8,
+            transform=ax.transAxes, bbox={"fc": "white", "ec": "none", "alpha": 0.8, "pad": 2})
     return mappable
 
 
@@ -141,6 +142,7 @@ def _inset(fig, ax_prof, ax_cut, cs, ct, m, k, peak, window, vmax, signed):
                 "D", ms=6, mfc="none", mec=_MARK, mew=1.8)
     ax.set_title(f"cross-section {k} at {arc[k]:.1f} mm", fontsize=7.5)
     ax.tick_params(labelsize=6.5)
+    ax.locator_params(nbins=3)
     for spine in ax.spines.values():
         spine.set_edgecolor(_MARK)
         spine.set_linewidth(1.5)

@@ -17,7 +17,7 @@ def _texts(fig):
     if fig._supylabel is not None:
         out.append(fig._supylabel.get_text())
     for ax in fig.axes:
-        out += [ax.get_title(), ax.get_title(loc="right"), ax.get_xlabel(), ax.get_ylabel()]
+        out += [ax.get_title(), ax.get_xlabel(), ax.get_ylabel(), *(t.get_text() for t in ax.texts)]
     return " | ".join(out)
 
 
