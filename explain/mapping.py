@@ -18,9 +18,16 @@ SimpleITK reports it). This module reduces such a map to
 
 A map with no positive value (or all zero for ``"absolute"``) has no peak and no extent.
 
+Every segment has the same number of cross-sections whatever its length, so a per-section sum
+is not comparable between segments; :func:`profile_per_mm` divides it by the spacing of the
+cross-sections, giving attribution per mm of arc (what the profile figures plot).
+
 It also builds the volumes that open on the CT: :func:`overlay` (maps splatted into the scan's
-geometry by :func:`explain.geometry.splat`) and :func:`lumen_label` (a label image of a vessel's
-lumen: voxels whose centre lies within the lumen radius of the centerline).
+geometry by :func:`explain.geometry.splat`; where the stacks of several segments overlap, a voxel
+holds the weighted mean of their pixels, so overlapping segments average), :func:`coverage` (the
+splat weight: 0 where no cross-section reached, so a viewer can tell "not sampled" from "no
+attribution"), and :func:`curve_lumen_label` (a label image of a vessel's lumen around the same
+smooth centerline that sampling follows; :func:`lumen_label` does it for a polyline).
 """
 
 from __future__ import annotations
@@ -43,6 +50,9 @@ __all__ = [
     "locate",
     "overlay",
     "lumen_label",
+    "profile_per_mm",
+    "coverage",
+    "curve_lumen_label",
 ]
 
 AGGREGATES = ("positive", "absolute")
@@ -117,6 +127,11 @@ class Location:
     aggregate: str
     peak: Peak | None
     extent_mm: tuple | None
+
+    @property
+    def per_mm(self):
+        """The profile as attribution per mm of arc, (N,) float64 (:func:`profile_per_mm`)."""
+        return profile_per_mm(self.profile, self.arc_mm)
 
     def __repr__(self):
         where = "no peak" if self.peak is None else (
@@ -385,3 +400,93 @@ def lumen_label(like, centerline_mm, radius_mm=None, *, label=1):
     result = sitk.GetImageFromArray(out)
     result.CopyInformation(like)
     return result
+
+
+def profile_per_mm(profile_, arc_mm):
+    """A per-cross-section profile as attribution per mm of arc.
+
+    Each cross-section stands for the stretch of arc between the midpoints to its neighbours
+    (half a spacing at the ends is taken as a whole one, as :func:`numpy.gradient` does), so its
+    sum divided by the local spacing is a density along the vessel, comparable between segments
+    of different lengths.
+
+    Parameters
+    ----------
+    profile_ : (N,) array_like
+        Sum of attribution per cross-section (target units).
+    arc_mm : (N,) array_like
+        Increasing arc positions, mm (N >= 2).
+
+    Returns
+    -------
+    (N,) float64
+        Target units per mm of arc.
+
+    Examples
+    --------
+    >>> profile_per_mm([1.0, 2.0, 4.0], [0.0, 0.5, 1.0]).tolist()
+    [2.0, 4.0, 8.0]
+    """
+    p = np.asarray(profile_, dtype=np.float64)
+    arc = np.asarray(arc_mm, dtype=np.float64)
+    if p.shape != arc.shape or p.ndim != 1 or p.size < 2:
+        raise InputError(f"profile {p.shape} and arc_mm {arc.shape}: expected two (N >= 2,) arrays")
+    step = np.gradient(arc)
+    if not (step > 0).all():
+        raise InputError("arc_mm: expected strictly increasing arc positions in mm")
+    return p / step
+
+
+def coverage(sections, *, like):
+    """Splat weight of cross-section stacks in the CT's geometry (overlays/coverage.nii.gz).
+
+    Parameters
+    ----------
+    sections : sequence of CrossSections
+    like : SimpleITK.Image
+        The CT.
+
+    Returns
+    -------
+    SimpleITK.Image
+        float32, the summed trilinear weight of every pixel that reached a voxel; 0 where no
+        cross-section reached, so an overlay's 0 there means "not sampled", not "no attribution".
+    """
+    from .geometry import splat
+
+    sections = list(sections)
+    ones = [np.ones(cs.shape, dtype=np.float32) for cs in sections]
+    _, weight = splat(ones, sections, like=like, return_weight=True)
+    return sitk.Cast(weight, sitk.sitkFloat32)
+
+
+def curve_lumen_label(like, centerline, radius_mm=None, *, label=1):
+    """:func:`lumen_label` around a :class:`~explain.geometry.Centerline`'s smooth curve.
+
+    Cross-sections are sampled along the centerline's spline (its ``even_samples``), so the label
+    follows the same curve rather than the straight lines between the given points. The curve is
+    sampled every quarter of the smallest voxel spacing; the radius given per centerline point is
+    interpolated linearly in arc length.
+
+    Parameters
+    ----------
+    like : SimpleITK.Image
+    centerline : explain.geometry.Centerline
+    radius_mm : float or (n,) array_like, optional
+        One radius per centerline point (mm) or a single one; default :data:`DEFAULT_RADIUS_MM`.
+    label : int
+
+    Returns
+    -------
+    SimpleITK.Image
+        uint8.
+    """
+    arc = np.asarray(centerline.arc_mm, dtype=np.float64)
+    radius = np.asarray(DEFAULT_RADIUS_MM if radius_mm is None else radius_mm, dtype=np.float64)
+    if radius.ndim > 1 or radius.size not in (1, arc.size):
+        raise InputError(f"radius_mm: expected one radius per centerline point ({arc.size}) "
+                         f"or a single radius, got shape {radius.shape}")
+    n = max(2, int(np.ceil(centerline.length_mm / (0.25 * min(like.GetSpacing())))) + 1)
+    points, dense_arc, _ = centerline.even_samples(n)
+    dense_r = radius if radius.size == 1 else np.interp(dense_arc, arc, radius.reshape(-1))
+    return lumen_label(like, points, np.broadcast_to(dense_r, dense_arc.shape), label=label)

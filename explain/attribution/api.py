@@ -53,7 +53,8 @@ def attribute(
         One of :data:`METHODS`: ``gradient``, ``gradient_x_input``, ``smoothgrad`` (options
         ``n``, ``noise``, ``seed``), ``integrated_gradients`` (``steps``,
         ``return_convergence_delta``), ``gradcam`` (``layer``, ``layer_stride``,
-        ``layer_offset``), ``occlusion`` (``window``, ``stride``).
+        ``layer_offset``), ``occlusion`` (``window``, ``stride``, ``window_mm``,
+        ``arc_step_mm``: the window along the arc in mm, converted per segment).
     target : int or str
         Column, ``"predicted"`` (fixed per patient), ``"expected"`` or ``"key:column"``.
     baseline_hu : float

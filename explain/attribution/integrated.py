@@ -2,7 +2,9 @@
 
 The path runs from the constant ``baseline_hu`` patient to ``x`` with every segment moving at
 once, on the whole model (a per-segment path would hold the other segments at ``x`` and measure
-something else). The attributions sum to ``F(x) - F(baseline)`` up to the convergence delta.
+something else). The attributions sum to ``F(x) - F(baseline)`` up to the convergence delta
+(completeness, Sundararajan et al. 2017, Proposition 1); :func:`completeness_finding` turns a gap
+above :data:`COMPLETENESS_SHARE` of ``|F(x) - F(baseline)|`` into a warning.
 """
 
 from __future__ import annotations
@@ -13,7 +15,45 @@ from captum.attr import IntegratedGradients
 from ..errors import InputError
 from .local import whole_model
 
-__all__ = ["integrated_gradients"]
+__all__ = ["COMPLETENESS_SHARE", "completeness_finding", "integrated_gradients"]
+
+#: Largest completeness gap, as a share of ``|F(x) - F(baseline)|``, reported as a note rather
+#: than a warning. Sundararajan, Taly and Yan (2017, section 4) advise enough steps for the
+#: attributions to sum to within 5 % of the difference (from memory).
+COMPLETENESS_SHARE = 0.05
+
+
+def completeness_finding(total, delta, *, share=COMPLETENESS_SHARE):
+    """The completeness gap of one Integrated Gradients map as ``(text, is_warning)``.
+
+    Parameters
+    ----------
+    total : float
+        Sum of the attributions, target units.
+    delta : float
+        captum's convergence delta, ``total - (F(x) - F(baseline))``, target units.
+    share : float
+        Gap, as a share of ``|F(x) - F(baseline)|``, above which the text is a warning.
+
+    Returns
+    -------
+    text : str
+    is_warning : bool
+
+    Examples
+    --------
+    >>> completeness_finding(1.02, 0.02)[1], completeness_finding(1.2, 0.2)[1]
+    (False, True)
+    """
+    change = float(total) - float(delta)  # F(x) - F(baseline)
+    gap = abs(float(delta))
+    relative = gap / abs(change) if change != 0 else (0.0 if gap == 0 else float("inf"))
+    text = (f"integrated_gradients: completeness gap (convergence delta) {float(delta):.3g} "
+            f"target units, {100 * relative:.3g} % of |F(x) - F(baseline)| = {abs(change):.3g}")
+    if relative > share:
+        return (text + f"; above {100 * share:g} %: the map does not account for the whole "
+                "change of the target; use more steps before reading it"), True
+    return text, False
 
 
 def integrated_gradients(

@@ -10,11 +10,19 @@ the constant ``baseline_hu`` (so the empty coalition is "a patient whose vessels
 ``baseline_hu``"). Segment features are computed once; coalitions only run the head.
 
 Ties: a channel shared by several segments is won by the lowest segment index, as ``torch.max``
-(dim=...) picks on CPU.
+(dim=...) picks on CPU. Shapley values within :data:`TIE_RTOL` of ``|v(all) - v(none)|`` of the
+largest one are a culprit tie (:attr:`SegmentTrace.tied`): the lowest index is named, and the
+report says the others were level with it.
+
+Precision: the head usually runs in float32, whose rounding (about 1e-7 of the value) could
+decide between two nearly equal Shapley values. Coalition values are therefore computed with a
+float64 copy of the model where the head runs in float64 (and agrees with the float32 head to
+:data:`FLOAT64_AGREEMENT`); otherwise in float32, and :attr:`SegmentTrace.value_dtype` says so.
 """
 
 from __future__ import annotations
 
+import copy
 import math
 from dataclasses import dataclass
 
@@ -26,7 +34,7 @@ from ._common import DEFAULT_HEAD_BATCH, baseline_features, batch_size, check_ca
 
 __all__ = [
     "SegmentTrace", "trace_segments", "exact_shapley", "coalition_values", "culprit_doubts",
-    "MAX_EXACT", "LOW_MARGIN_FRACTION",
+    "MAX_EXACT", "LOW_MARGIN_FRACTION", "TIE_RTOL", "FLOAT64_AGREEMENT",
 ]
 
 #: Above this many segments Shapley values are estimated by permutation sampling.
@@ -36,6 +44,15 @@ MAX_EXACT = 20
 #: ``|v(all) - v(none)|``, the whole change the segments make to the target. Our own setting
 #: (common practice, no source): a tenth of the total leaves the culprit clearly ahead.
 LOW_MARGIN_FRACTION = 0.10
+
+#: Shapley values closer than this share of ``|v(all) - v(none)|`` to the largest are tied with
+#: it. Our own setting (common practice, no source): well above float32 rounding of a head's
+#: output (about 1e-7 relative, summed over coalitions), far below a margin anyone would read.
+TIE_RTOL = 1e-6
+
+#: The float64 head is used only if ``v(all)`` and ``v(none)`` agree with the float32 head to
+#: this share of ``1 + |v|`` (a model whose head changes meaning in float64 is not trusted).
+FLOAT64_AGREEMENT = 1e-3
 
 
 @dataclass(frozen=True, repr=False)
@@ -66,6 +83,12 @@ class SegmentTrace:
     baseline_hu : float
     n_permutations : int or None
         Permutations drawn when sampled; ``seed`` the seed used.
+    tied : tuple of int
+        Other segments whose Shapley value is within :data:`TIE_RTOL` of the culprit's.
+    value_dtype : str
+        ``"float64"`` or ``"float32"``: the precision the coalition values were computed in.
+    precision_note : str or None
+        Why float32 was kept, when it was.
     """
 
     winners: np.ndarray
@@ -81,6 +104,9 @@ class SegmentTrace:
     baseline_hu: float
     n_permutations: int | None = None
     seed: int | None = None
+    tied: tuple = ()
+    value_dtype: str = "float32"
+    precision_note: str | None = None
 
     def __repr__(self):
         how = "exact" if self.shapley_stderr is None else f"{self.n_permutations} permutations"
@@ -182,6 +208,59 @@ def _sampled_shapley(value_head, feats, base, *, n_permutations, seed, batch):
     return mean, stderr
 
 
+def _culprit(shapley, value_all, value_empty, *, rtol=TIE_RTOL):
+    """Culprit index (lowest on ties), margin over the runner-up, and the segments tied with it.
+
+    Examples
+    --------
+    >>> culprit, margin, tied = _culprit(np.array([0.2, 0.5, 0.5 - 1e-9, 0.1]), 1.3, 0.0)
+    >>> culprit, round(margin, 12), tied
+    (1, 1e-09, (2,))
+    """
+    order = np.argsort(-shapley, kind="stable")
+    culprit = int(order[0])
+    margin = float(shapley[order[0]] - (shapley[order[1]] if shapley.size > 1 else 0.0))
+    scale = abs(float(value_all) - float(value_empty))
+    tol = rtol * scale if scale > 0 else 1e-12
+    tied = tuple(int(i) for i in order[1:] if shapley[culprit] - shapley[i] <= tol)
+    return culprit, margin, tuple(sorted(tied))
+
+
+def _float64_head(wrapped):
+    """A float64 copy of ``wrapped`` (same split), or (None, reason) when the model refuses."""
+    try:
+        twin = copy.copy(wrapped)
+        twin.module = copy.deepcopy(wrapped.module).double()
+        return twin, None
+    except (RuntimeError, TypeError, ValueError, AttributeError) as exc:
+        return None, f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
+
+
+def _value_function(wrapped, tgt, feats, base, *, batch):
+    """``v`` as a function of pooled rows, in float64 where the head allows it.
+
+    Returns the function, ``"float64"`` or ``"float32"``, and a note saying why float32 was kept.
+    """
+    def value32(p):
+        return head_values(wrapped, tgt, p, batch=batch)
+
+    twin, reason = _float64_head(wrapped)
+    if twin is not None:
+        probe = torch.stack([torch.maximum(feats.max(dim=0).values, base), base])
+        try:
+            want = value32(probe)
+            got = head_values(twin, tgt, probe.double(), batch=batch)
+        except (RuntimeError, TypeError, ValueError) as exc:
+            reason = f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
+        else:
+            if np.all(np.abs(got - want) <= FLOAT64_AGREEMENT * (1 + np.abs(want))):
+                return (lambda p: head_values(twin, tgt, p.double(), batch=batch)), "float64", None
+            reason = (f"the float64 head gave {got.tolist()} where float32 gave {want.tolist()} "
+                      "for v(all), v(none)")
+    return value32, "float32", (f"coalition values computed in float32: the head does not run "
+                                f"in float64 ({reason})")
+
+
 def trace_segments(
     wrapped, x, *, target, baseline_hu=0.0, internal_batch_size=None,
     max_exact=MAX_EXACT, n_permutations=256, seed=0,
@@ -225,8 +304,8 @@ def trace_segments(
     per_channel = (pooled.grad * pooled).detach().double()
     grad_x_feat = torch.zeros(s, dtype=torch.float64).index_add_(0, winners, per_channel).numpy()
 
-    def value_head(p):
-        return head_values(wrapped, tgt, p, batch=batch)
+    value_head, value_dtype, precision_note = _value_function(wrapped, tgt, feats, base,
+                                                             batch=batch)
 
     value_all = float(value_head(torch.maximum(feats.max(dim=0).values, base)[None])[0])
     value_empty = float(value_head(base[None])[0])
@@ -249,15 +328,14 @@ def trace_segments(
             value_head, feats, base, n_permutations=n_permutations, seed=seed, batch=batch
         )
         n_perm, used_seed = n_permutations, seed
-    order = np.argsort(-shapley, kind="stable")
-    culprit = int(order[0])
-    margin = float(shapley[order[0]] - (shapley[order[1]] if s > 1 else 0.0))
+    culprit, margin, tied = _culprit(shapley, value_all, value_empty)
     return SegmentTrace(
         winners=winners.numpy(), gradient_x_feature=grad_x_feat,
         leave_one_out=np.asarray(leave_one_out),
         shapley=shapley, shapley_stderr=stderr, culprit=culprit, margin=margin,
         target_index=tgt.label, value_all=value_all, value_empty=value_empty,
         baseline_hu=float(baseline_hu), n_permutations=n_perm, seed=used_seed,
+        tied=tied, value_dtype=value_dtype, precision_note=precision_note,
     )
 
 

@@ -192,6 +192,31 @@ def make_phantom(*, seed=0, lesions=None, case_id=None, spacing_mm=DEFAULT_SPACI
     """
     seed = check_seed(seed)
     specs = _as_specs(lesions)
+    direction = _check_options(specs, spacing_mm, direction, variation, noise_sd_hu, blur_sigma_mm)
+    wanted = tuple(s.segment for s in specs if s.segment in OPTIONAL_SEGMENTS)
+    layout = make_layout(np.random.default_rng([seed, _STREAM_ANATOMY]), variation=variation,
+                         include=wanted)
+    tissue = _tissue(np.random.default_rng([seed, _STREAM_TISSUE]), variation, noise_sd_hu,
+                     blur_sigma_mm)
+    placed = [place_lesion(spec, layout.segments[spec.segment],
+                           np.random.default_rng([seed, _STREAM_LESION, n]))
+              for n, spec in enumerate(specs)]
+    tubes, radius, healthy = _draw_tubes(layout, placed)
+    points = np.concatenate([p.points_mm for p in layout.segments.values()])
+    grid = Grid.around(points, spacing=float(spacing_mm), margin_mm=6.0, direction=direction)
+    background = sphere_background(grid, layout.centre_mm, layout.myocardium_radius_mm,
+                                   inside_hu=tissue["myocardium_hu"], outside_hu=tissue["fat_hu"])
+    hu, mask = render_volume(grid, tubes, lumen_hu=tissue["lumen_hu"], background_hu=background,
+                             blur_sigma_mm=float(blur_sigma_mm), noise_sd_hu=tissue["noise_sd_hu"],
+                             rng=np.random.default_rng([seed, _STREAM_NOISE]))
+    centerlines = {i: np.asarray(p.points_mm) for i, p in layout.segments.items()}
+    return PhantomCase(case_id or f"phantom-{seed}", seed, _image(hu, grid), centerlines, radius,
+                       healthy, _reference(layout, placed), _image(mask, grid), tuple(placed),
+                       tissue, layout)
+
+
+def _check_options(specs, spacing_mm, direction, variation, noise_sd_hu, blur_sigma_mm):
+    """make_phantom's option checks; returns the direction as an array (or None)."""
     if not (isinstance(spacing_mm, numbers.Real) and 0.2 <= float(spacing_mm) <= 2.0):
         raise InputError(f"spacing_mm: expected a voxel size of 0.2-2.0 mm, got {spacing_mm!r}")
     for name, value, top in (("variation", variation, 2.0), ("blur_sigma_mm", blur_sigma_mm, 2.0),
@@ -208,12 +233,13 @@ def make_phantom(*, seed=0, lesions=None, case_id=None, spacing_mm=DEFAULT_SPACI
             raise InputError(f"lesion {spec}: segment {spec.segment} "
                              f"({segment_info(spec.segment).abbr}) is not drawn in phantoms "
                              "(their trees are right-dominant); choose another segment")
-    wanted = tuple(s.segment for s in specs if s.segment in OPTIONAL_SEGMENTS)
-    layout = make_layout(np.random.default_rng([seed, _STREAM_ANATOMY]), variation=variation,
-                         include=wanted)
-    rng = np.random.default_rng([seed, _STREAM_TISSUE])
+    return direction
+
+
+def _tissue(rng, variation, noise_sd_hu, blur_sigma_mm):
+    """Tissue HU, noise and blur of one phantom (four uniform draws from ``rng``)."""
     u = rng.uniform(size=4)
-    tissue = {
+    return {
         "lumen_hu": round(float(LUMEN_HU + 0.5 * LUMEN_SD_HU * variation * (2 * u[0] - 1)), 1),
         "fat_hu": round(float(FAT_HU + 5.0 * variation * (2 * u[1] - 1)), 1),
         "myocardium_hu": round(float(np.interp(u[2], [0, 1], MYOCARDIUM_HU)), 1),
@@ -221,9 +247,10 @@ def make_phantom(*, seed=0, lesions=None, case_id=None, spacing_mm=DEFAULT_SPACI
         if noise_sd_hu is None else float(noise_sd_hu),
         "blur_sigma_mm": float(blur_sigma_mm),
     }
-    placed = [place_lesion(spec, layout.segments[spec.segment],
-                           np.random.default_rng([seed, _STREAM_LESION, n]))
-              for n, spec in enumerate(specs)]
+
+
+def _draw_tubes(layout, placed):
+    """Tubes to render, lumen radius per centerline point and healthy radius, per segment."""
     tubes, radius, healthy = [], {}, {}
     for segment_id, path in layout.segments.items():
         mine = [(p, n + 1) for n, p in enumerate(placed) if p.segment == segment_id]
@@ -231,27 +258,20 @@ def make_phantom(*, seed=0, lesions=None, case_id=None, spacing_mm=DEFAULT_SPACI
         tubes.append(tube)
         radius[segment_id] = lumen
         healthy[segment_id] = np.asarray(path.radius_mm)
-    points = np.concatenate([p.points_mm for p in layout.segments.values()])
-    grid = Grid.around(points, spacing=float(spacing_mm), margin_mm=6.0, direction=direction)
-    background = sphere_background(grid, layout.centre_mm, layout.myocardium_radius_mm,
-                                   inside_hu=tissue["myocardium_hu"], outside_hu=tissue["fat_hu"])
-    hu, mask = render_volume(grid, tubes, lumen_hu=tissue["lumen_hu"], background_hu=background,
-                             blur_sigma_mm=float(blur_sigma_mm), noise_sd_hu=tissue["noise_sd_hu"],
-                             rng=np.random.default_rng([seed, _STREAM_NOISE]))
-    image = _image(hu, grid)
-    lesion_mask = _image(mask, grid)
+    return tubes, radius, healthy
+
+
+def _reference(layout, placed):
+    """The phantom's reference: CAD-RADS grade, stenosis per segment, lesion stretches."""
     stenosis = {segment_id: 0.0 for segment_id in layout.segments}
     for p in placed:
         stenosis[p.segment] = max(stenosis[p.segment], p.percent)
-    reference = {
+    return {
         "grade": cadrads_category(stenosis, plaque=bool(placed)),
         "stenosis_percent": stenosis,
         "lesions": [{"segment": p.segment, "start_mm": p.start_mm, "end_mm": p.end_mm}
                     for p in placed],
     }
-    centerlines = {i: np.asarray(p.points_mm) for i, p in layout.segments.items()}
-    return PhantomCase(case_id or f"phantom-{seed}", seed, image, centerlines, radius, healthy,
-                       reference, lesion_mask, tuple(placed), tissue, layout)
 
 
 def _image(array, grid):

@@ -20,13 +20,14 @@ from ..mapping import locate
 from ..quality.settings import quality_option
 from .wording import grade_phrase
 
-__all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW", "SegmentResult", "Explanation", "explain_case"]
+__all__ = ["DEFAULT_METHODS", "OCCLUSION_WINDOW_MM", "OCCLUSION_WINDOW_PIXELS", "SegmentResult", "Explanation", "explain_case"]
 
 #: Methods computed when none are named: the two the localisation checks use, and Grad-CAM.
 DEFAULT_METHODS = ("integrated_gradients", "occlusion", "gradcam")
 
-#: Occlusion window: cross-sections along the arc x pixels x pixels (clipped to the stack).
-OCCLUSION_WINDOW = (4, 8, 8)
+#: Occlusion window: mm along the arc (converted per segment), pixels x pixels in-plane.
+OCCLUSION_WINDOW_MM = 4.0
+OCCLUSION_WINDOW_PIXELS = 8
 
 #: How each map's profile is aggregated per cross-section (see :mod:`explain.mapping`).
 #: Gradients are sensitivities whose sign says which way HU would have to move, so their
@@ -122,6 +123,10 @@ class Explanation:
         Index into ``segments`` of the segment with the largest Shapley value.
     margin : float
         Its Shapley value minus the second largest.
+    tied_with : tuple of int
+        SCCT numbers of segments whose Shapley value is level with the culprit's (within
+        :data:`explain.attribution.trace.TIE_RTOL` of ``|v(all) - v(none)|``); the culprit is
+        then the lowest SCCT number among them, and the report says so.
     maps : dict of str to (S, N, H, W) float32
         Each method's attribution on the cross-sections.
     cautions : tuple of str
@@ -129,6 +134,10 @@ class Explanation:
     quality : explain.quality.Assessment or None
         How far to trust this explanation (:func:`explain.quality.assess`); None when
         ``explain_case(..., quality=False)``.
+    warnings : tuple of str
+        Findings that should change how far the explanation is trusted (for example an
+        Integrated Gradients completeness gap above
+        :data:`explain.attribution.integrated.COMPLETENESS_SHARE`).
     """
 
     case: object = field(repr=False)
@@ -144,6 +153,8 @@ class Explanation:
     cautions: tuple = CAUTIONS
     notes: tuple = ()
     quality: object = field(default=None, repr=False)
+    tied_with: tuple = ()
+    warnings: tuple = ()
 
     @property
     def case_id(self):
@@ -221,23 +232,53 @@ def _check_methods(methods):
     return methods
 
 
-def method_settings(method, shape, *, seed):
+def method_settings(method, shape, *, seed, arc_step_mm=None, range_hu=None):
     """The options each method runs with (recorded in the report's settings).
 
-    Occlusion slides a window of :data:`OCCLUSION_WINDOW`, 4 cross-sections x 8 x 8 pixels
-    (clipped to the stack's shape ``(N, H, W)``), by 2 cross-sections along the arc and a whole
-    window in-plane: overlapping along the vessel locates the peak to about two cross-sections,
-    at a cost a CPU bears for a full tree (about 2000 single-segment encoder runs for 15 segments of 32 x 24 x 24).
+    Occlusion hides :data:`OCCLUSION_WINDOW_MM` (4 mm) of arc at a time, whatever the segment's
+    length: with ``arc_step_mm`` (S,), the spacing of each segment's cross-sections in mm, the
+    window becomes ``round(4 mm / step)`` cross-sections on each segment (at least 1, at most N;
+    :func:`explain.attribution.occlusion.arc_windows`), slid by half a window along the arc and
+    a whole window of :data:`OCCLUSION_WINDOW_PIXELS` pixels (clipped to ``(H, W)``) in-plane.
+    The windows and strides are recorded per segment beside the mm they came from. SmoothGrad's
+    noise is a share of the HU range of the pixels inside the image
+    (:func:`explain.attribution.gradients.inside_range_hu`), given here as ``range_hu``.
     """
+    from ..attribution.occlusion import arc_windows
+
     n, h, w = shape
     if method == "integrated_gradients":
         return {"steps": 50}
     if method == "occlusion":
-        window = tuple(min(a, b) for a, b in zip(OCCLUSION_WINDOW, (n, h, w)))
-        return {"window": window, "stride": (max(1, window[0] // 2), window[1], window[2])}
+        if arc_step_mm is None:
+            raise InputError("method_settings('occlusion'): needs arc_step_mm, the spacing of "
+                             "each segment's cross-sections in mm (explanation.arc_steps)")
+        steps = np.asarray(arc_step_mm, dtype=np.float64)
+        pixels = (min(OCCLUSION_WINDOW_PIXELS, h), min(OCCLUSION_WINDOW_PIXELS, w))
+        windows, strides = arc_windows(OCCLUSION_WINDOW_MM, steps, n, pixels=pixels)
+        return {"window_mm": OCCLUSION_WINDOW_MM, "arc_step_mm": [float(v) for v in steps],
+                "window": [list(v) for v in windows], "stride": [list(v) for v in strides]}
     if method == "smoothgrad":
-        return {"n": 50, "noise": 0.15, "seed": seed}
+        options = {"n": 50, "noise": 0.15, "seed": seed}
+        if range_hu is not None:
+            options["range_hu"] = [float(v) for v in range_hu]
+        return options
     return {}
+
+
+def arc_steps(sections):
+    """Spacing of consecutive cross-sections of each segment, mm: ``(S,)`` float64."""
+    return np.array([float(cs.arc_mm[-1] - cs.arc_mm[0]) / max(cs.shape[0] - 1, 1)
+                     for cs in sections.sections])
+
+
+def _inside_range(methods, sections, case):
+    """HU range of the pixels inside the CT, for SmoothGrad's noise (None when not needed)."""
+    if "smoothgrad" not in methods:
+        return None
+    from ..attribution.gradients import inside_range_hu
+
+    return inside_range_hu(sections.sections, case.image)
 
 
 _OPTION = {"points": "--points (points)", "size": "--size (size)",
@@ -346,13 +387,16 @@ def _run_model(model, x, notes):
                              f"cross-sections {tuple(x.shape)}{hint}: {cause}") from None
 
 
-def _methods_to_run(model, x, methods, named, stack_shape, *, gradcam_layer, seed, notes):
+def _methods_to_run(model, x, methods, named, sections, case, *, gradcam_layer, seed, notes):
     """(methods, options per method, skipped method -> reason), checked before any map."""
     from .saliency import usable_methods
 
     methods, found, skipped = usable_methods(model, x, methods, named=named,
                                              gradcam_layer=gradcam_layer, notes=notes)
-    options = {m: {**method_settings(m, stack_shape, seed=seed), **found.get(m, {})}
+    stack_shape, steps = sections.values.shape[1:], arc_steps(sections)
+    range_hu = _inside_range(methods, sections, case)
+    options = {m: {**method_settings(m, stack_shape, seed=seed, arc_step_mm=steps,
+                                     range_hu=range_hu), **found.get(m, {})}
                for m in methods}
     return methods, options, skipped
 
@@ -426,28 +470,22 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         target_value = float(resolved(output)[0])
     # cheap checks of the methods (Grad-CAM's layer) before the expensive steps
     methods, method_options, skipped = _methods_to_run(
-        model, x, methods, named, sections.values.shape[1:], gradcam_layer=gradcam_layer,
-        seed=int(seed), notes=notes)
+        model, x, methods, named, sections, case, gradcam_layer=gradcam_layer, seed=int(seed),
+        notes=notes)
 
     _say(progress, "tracing segments (winning channels, leave-one-out, Shapley)")
     trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed))
 
+    notes.extend(_trace_notes(trace, sections.segment_ids))
+    warnings = []
     maps = saliency_maps(model, x, methods, resolved, method_options, baseline_hu=baseline_hu,
-                         seed=int(seed), progress=progress, notes=notes)
+                         seed=int(seed), progress=progress, notes=notes, warnings=warnings)
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
     label = resolved.label
-    settings = {
-        "methods": list(methods), "target": target if isinstance(target, (int, str)) else label,
-        **sampling, "rotation_deg": 0.0, "baseline_hu": baseline_hu, "seed": int(seed),
-        "method_options": method_options, "skipped_methods": skipped,
-        "profile_aggregate": {m: aggregate_of(m) for m in methods},
-        "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
-        "extent_rule": "contiguous run at or above half the peak profile value",
-        "culprit_rule": "largest Shapley value over segments",
-        "library_version": __version__,
-    }
+    settings = _settings(methods, target, label, sampling, baseline_hu, seed, method_options,
+                         trace, skipped)
     explanation = Explanation(
         case=case, sections=sections,
         model={"name": getattr(model, "name", None),
@@ -459,6 +497,8 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
                 "value_all": float(trace.value_all), "value_none": float(trace.value_empty)},
         segments=segments, culprit_index=int(trace.culprit), margin=float(trace.margin),
         maps=maps, notes=tuple(case.notes) + tuple(getattr(model, "notes", ())) + tuple(notes),
+        tied_with=tuple(int(sections.segment_ids[i]) for i in trace.tied),
+        warnings=tuple(warnings),
     )
     if quality_settings is None:
         return explanation
@@ -467,6 +507,48 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     _say(progress, "assessing the explanation (localisation, mass shares, faithfulness)")
     return replace(explanation, quality=assess(explanation, case, model=model, target=resolved,
                                                **quality_settings))
+
+
+def _settings(methods, target, label, sampling, baseline_hu, seed, method_options, trace,
+              skipped):
+    """Every option and rule the explanation used, for the report's settings."""
+    from ..attribution.trace import TIE_RTOL
+
+    return {
+        "methods": list(methods), "target": target if isinstance(target, (int, str)) else label,
+        **sampling, "rotation_deg": 0.0, "baseline_hu": baseline_hu, "seed": int(seed),
+        "method_options": method_options, "skipped_methods": skipped,
+        "profile_aggregate": {m: aggregate_of(m) for m in methods},
+        "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
+        "extent_rule": "contiguous run at or above half the peak profile value",
+        "culprit_rule": f"largest Shapley value over segments; values within {TIE_RTOL:g} x "
+                        "|v(all) - v(none)| of it are a tie, named at the lowest SCCT number",
+        "shapley": _shapley_kind(trace), "coalition_values": trace.value_dtype,
+        "library_version": __version__,
+    }
+
+
+def _shapley_kind(trace):
+    """``"exact"`` (all 2^S coalitions) or how the values were sampled."""
+    if trace.shapley_stderr is None:
+        return "exact over all coalitions of segments"
+    return (f"sampled: {trace.n_permutations} permutations (seed {trace.seed}); standard error "
+            "per segment in shapley_stderr")
+
+
+def _trace_notes(trace, segment_ids):
+    """Notes on a culprit tie and on the precision of the coalition values."""
+    from ..attribution.trace import TIE_RTOL
+
+    notes = []
+    if trace.tied:
+        level = ", ".join(str(segment_ids[i]) for i in trace.tied)
+        notes.append(f"culprit tie: segment(s) {level} have a Shapley value level with segment "
+                     f"{segment_ids[trace.culprit]} (within {TIE_RTOL:g} of |v(all) - v(none)|); "
+                     "the lowest SCCT number is named, but the model does not single one out")
+    if trace.precision_note:
+        notes.append(trace.precision_note)
+    return notes
 
 
 def _segment_results(case, sections, trace, maps):

@@ -1,10 +1,12 @@
 """The report's figures (matplotlib, Agg backend, no pyplot state).
 
-- ``profiles_<method>.png``: the map's profile along every vessel, one row per territory with
-  its segments laid end to end, boundaries marked, reference lesions shaded; one y scale.
-- ``culprit_<method>.png``: the culprit segment straightened (two longitudinal cuts through its
-  cross-section stack, through the peak pixel) and the cross-section at the peak, CT in grey
-  with the map over it; one colour scale (raw values) with a colour bar.
+- ``profiles_<method>.png``: the map's profile along every vessel as attribution per mm of arc
+  (segments have the same number of cross-sections whatever their length, so per-section sums
+  would not compare), one row per territory with its segments laid end to end, boundaries
+  marked, reference lesions shaded; one y scale.
+- ``culprit_<method>.png``: the culprit along its arc: the profile per mm of arc on top, one
+  straightened cut under it on the same arc axis, the cross-section at the peak as an inset
+  tied to its arc position; grey window from the case's lumen (:mod:`.straightened`).
 - ``contributions.png``: Shapley and leave-one-out contribution of every segment.
 - ``tree.png``: a schematic coronary tree of our own drawing coloured by Shapley value.
 """
@@ -15,13 +17,13 @@ import numpy as np
 from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.cm import ScalarMappable
-from matplotlib.colors import Normalize, TwoSlopeNorm
+from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm
 from matplotlib.figure import Figure
 
 from ..anatomy import SEGMENT_TABLE
 from .wording import target_phrase, target_unit
 
-__all__ = ["METHOD_UNITS", "FIGURE_DPI", "profile_figure", "culprit_figure",
+__all__ = ["METHOD_UNITS", "FIGURE_DPI", "TREE_COLOURS", "new_figure", "profile_figure", "culprit_figure",
            "contribution_figure", "tree_figure", "write_figures"]
 
 FIGURE_DPI = 110
@@ -32,12 +34,9 @@ METHOD_UNITS = {
     "gradient_x_input": "target units",
     "smoothgrad": "target per HU",
     "integrated_gradients": "target units",
-    "gradcam": "target units x activation",
+    "gradcam": "target units",  # the channel weight d target / d activation carries the units
     "occlusion": "drop in target units",
 }
-
-#: CT grey window for the straightened views, HU (shows fat, muscle and enhanced lumen).
-CT_WINDOW_HU = (-250.0, 650.0)
 
 # Rows of the profile figure: main vessel first, then its branches (proximal to distal order).
 _ROWS = (("RCA", (1, 2, 3, 4, 16)), ("LM and LAD", (5, 6, 7, 8, 9, 10)),
@@ -47,7 +46,8 @@ _LESION = "#f2b880"
 _LINE = "#1f4e79"
 
 
-def _new_figure(width, height):
+def new_figure(width, height):
+    """A matplotlib Figure on an Agg canvas (no pyplot state)."""
     fig = Figure(figsize=(width, height), dpi=FIGURE_DPI)
     FigureCanvasAgg(fig)
     return fig
@@ -98,9 +98,9 @@ def profile_figure(explanation, method):
     rows = _rows(e)
     lesions = _lesions_by_segment(e)
     culprit_id = e.culprit.id
-    fig = _new_figure(10.0, 1.2 + 1.9 * len(rows))
+    fig = new_figure(10.0, 1.2 + 1.9 * len(rows))
     axes = fig.subplots(len(rows), 1, sharey=True, squeeze=False)[:, 0]
-    top = max((s.locations[method].profile.max() for s in e.segments), default=0.0)
+    top = max((s.locations[method].per_mm.max() for s in e.segments), default=0.0)
     top = top if top > 0 else 1.0
     for ax, (name, segs) in zip(axes, rows):
         offset = 0.0
@@ -109,9 +109,10 @@ def profile_figure(explanation, method):
             x = offset + loc.arc_mm
             for start, end in lesions.get(s.id, ()):
                 ax.axvspan(offset + start, offset + end, color=_LESION, alpha=0.6, lw=0)
-            ax.plot(x, loc.profile, color=_LINE, lw=1.6)
+            per_mm = loc.per_mm
+            ax.plot(x, per_mm, color=_LINE, lw=1.6)
             if loc.peak is not None:
-                ax.plot(offset + loc.peak.arc_mm, loc.peak.value, "v", ms=6,
+                ax.plot(offset + loc.peak.arc_mm, per_mm[loc.peak.index], "v", ms=6,
                         color="#c0392b" if s.id == culprit_id else "#555555")
             ax.axvline(offset, color="#888888", lw=0.8, ls="--")
             ax.axvline(offset + s.length_mm, color="#888888", lw=0.8, ls="--")
@@ -126,111 +127,36 @@ def profile_figure(explanation, method):
         ax.spines[["top", "right"]].set_visible(False)
     axes[-1].set_xlabel("arc length, segments laid end to end (mm); dashed lines: segment ends")
     what = "absolute" if _aggregate(e, method) == "absolute" else "positive"
-    fig.suptitle(f"{method}: sum of {what} attribution per cross-section ({_units(method, e)})"
+    fig.supylabel(f"{what} attribution per mm of arc ({_units(method, e)} / mm)", fontsize=9)
+    fig.suptitle(f"{method}: {what} attribution per mm of arc along each vessel "
+                 f"({_units(method, e)} / mm)"
                  + ("; shaded: reference lesions" if lesions else ""), fontsize=10)
     fig.tight_layout(rect=(0, 0, 1, 0.97))
     return fig
 
 
-def _overlay_rgba(values, vmax, signed):
-    """Map values to colours whose opacity grows with magnitude.
-
-    Values under 5 % of the scale are fully transparent, so that near-zero attribution (white
-    in the diverging scale) cannot be mistaken for bright CT."""
-    if signed:
-        cmap, norm = colormaps["RdBu_r"], Normalize(-vmax, vmax)
-    else:
-        cmap, norm = colormaps["plasma"], Normalize(0.0, vmax)
-    rgba = cmap(norm(values))
-    strength = np.clip((np.abs(values) / vmax - 0.05) / 0.95, 0, 1)
-    rgba[..., 3] = 0.9 * strength ** 0.8
-    return rgba, ScalarMappable(norm=norm, cmap=cmap)
-
-
 def culprit_figure(explanation, method):
-    """Straightened culprit (two cuts through the peak) and its cross-section at the peak."""
-    e = explanation
-    s = e.culprit_index
-    seg = e.culprit
-    cs = e.sections.sections[s]
-    ct = np.asarray(cs.values, dtype=np.float64)
-    m = np.asarray(e.maps[method][s], dtype=np.float64)
-    loc = seg.locations[method]
-    n, h, w = ct.shape
-    half_w, half_h = (w - 1) / 2 * cs.pixel_mm, (h - 1) / 2 * cs.pixel_mm
-    peak = loc.peak
-    k, row, col = (peak.index, peak.row, peak.col) if peak is not None else (n // 2, h // 2, w // 2)
-    vmax = float(np.abs(m).max()) or 1.0
-    signed = bool((m < 0).any())
-    arc = cs.arc_mm
-    extent_long = (arc[0], arc[-1])
+    """The culprit along its arc (see :mod:`explain.report.straightened`)."""
+    from .straightened import culprit_figure as draw
 
-    fig = _new_figure(11.5, 6.2)
-    grid = fig.add_gridspec(2, 3, width_ratios=(2.4, 1.0, 0.05), hspace=0.45, wspace=0.22)
-    cuts = ((ct[:, row, :].T, m[:, row, :].T, (-half_w, half_w), col,
-             f"cut along the in-plane u axis through pixel row {row}"),
-            (ct[:, :, col].T, m[:, :, col].T, (-half_h, half_h), row,
-             f"cut along the in-plane v axis through pixel column {col}"))
-    lesions = _lesions_by_segment(e).get(seg.id, ())
-    for r, (ct_cut, map_cut, (lo, hi), pixel, title) in enumerate(cuts):
-        ax = fig.add_subplot(grid[r, 0])
-        box = (extent_long[0], extent_long[1], lo, hi)
-        ax.imshow(ct_cut, cmap="gray", vmin=CT_WINDOW_HU[0], vmax=CT_WINDOW_HU[1],
-                  origin="lower", extent=box, aspect="auto", interpolation="nearest")
-        rgba, mappable = _overlay_rgba(map_cut, vmax, signed)
-        ax.imshow(rgba, origin="lower", extent=box, aspect="auto", interpolation="nearest")
-        for start, end in lesions:
-            ax.plot([start, end], [lo * 0.92] * 2, color=_LESION, lw=5, solid_capstyle="butt",
-                    label="reference lesion")
-        if peak is not None:
-            offset = (pixel - ((w if r == 0 else h) - 1) / 2) * cs.pixel_mm
-            ax.plot(peak.arc_mm, offset, "+", color="#00e5ff", ms=12, mew=2, label="peak")
-            ax.plot(list(loc.extent_mm), [hi * 0.92] * 2, color="#00e5ff", lw=3,
-                    solid_capstyle="butt", label="half-peak extent")
-        ax.set_title(title, fontsize=9)
-        ax.set_xlabel("arc length from segment start (mm)")
-        ax.set_ylabel("offset (mm)")
-        if r == 0:
-            handles, labels = ax.get_legend_handles_labels()
-            unique = dict(zip(labels, handles))
-            fig.legend(unique.values(), unique.keys(), loc="upper left", ncol=3, fontsize=8,
-                       frameon=False, bbox_to_anchor=(0.05, 0.945))
-    ax = fig.add_subplot(grid[:, 1])
-    box = (-half_w, half_w, -half_h, half_h)
-    ax.imshow(ct[k], cmap="gray", vmin=CT_WINDOW_HU[0], vmax=CT_WINDOW_HU[1], origin="lower",
-              extent=box, interpolation="nearest")
-    rgba, mappable = _overlay_rgba(m[k], vmax, signed)
-    ax.imshow(rgba, origin="lower", extent=box, interpolation="nearest")
-    if peak is not None:
-        ax.plot((col - (w - 1) / 2) * cs.pixel_mm, (row - (h - 1) / 2) * cs.pixel_mm, "+",
-                color="#00e5ff", ms=14, mew=2)
-    ax.set_title(f"cross-section {k} at {arc[k]:.1f} mm", fontsize=9)
-    ax.set_xlabel("u (mm)")
-    ax.set_ylabel("v (mm)")
-    cax = fig.add_subplot(grid[:, 2])
-    bar = fig.colorbar(mappable, cax=cax)
-    bar.set_label(f"{method} per pixel ({_units(method, e)})", fontsize=9)
-    where = "no attribution to locate" if peak is None else (
-        f"peak at {peak.arc_mm:.1f} mm, voxel {peak.voxel}")
-    fig.suptitle(f"Culprit {seg.label}, {method}: {where}; CT window "
-                 f"{CT_WINDOW_HU[0]:g} to {CT_WINDOW_HU[1]:g} HU", fontsize=10)
-    fig.subplots_adjust(left=0.06, right=0.9, top=0.86, bottom=0.09)
-    return fig
+    return draw(explanation, method, units=_units(method, explanation))
 
 
 def contribution_figure(explanation):
     """Shapley and leave-one-out contribution per segment (target units)."""
     e = explanation
     segs = e.segments
-    fig = _new_figure(7.5, 1.4 + 0.32 * len(segs))
+    fig = new_figure(7.5, 1.4 + 0.32 * len(segs))
     ax = fig.add_subplot(1, 1, 1)
     y = np.arange(len(segs))[::-1]
     shap = [s.shapley for s in segs]
     loo = [s.leave_one_out for s in segs]
-    ax.barh(y + 0.2, shap, height=0.38, color="#2c7fb8", label="Shapley value")
-    ax.barh(y - 0.2, loo, height=0.38, color="#bdbdbd", label="leave-one-out")
     stderr = [s.shapley_stderr for s in segs]
-    if all(v is not None for v in stderr):
+    sampled = all(v is not None for v in stderr)
+    how = "Shapley value, sampled (bars: 1 standard error)" if sampled else "Shapley value, exact"
+    ax.barh(y + 0.2, shap, height=0.38, color="#2c7fb8", label=how)
+    ax.barh(y - 0.2, loo, height=0.38, color="#bdbdbd", label="leave-one-out")
+    if sampled:
         ax.errorbar(shap, y + 0.2, xerr=stderr, fmt="none", ecolor="black", lw=0.8)
     ax.set_yticks(y, [s.label for s in segs], fontsize=8)
     for tick, index in zip(ax.get_yticklabels(), range(len(segs))):
@@ -246,6 +172,11 @@ def contribution_figure(explanation):
     fig.tight_layout()
     return fig
 
+
+#: The tree's diverging colours, of our own: teal (lowered the target), sand (none), plum (raised).
+TREE_COLOURS = LinearSegmentedColormap.from_list(
+    "culprit_lens_tree", ["#1b7f79", "#f2eee3", "#7a2e6b"])
+_CULPRIT_CASING = "#2b1d3a"
 
 # Our own schematic: anterior view, patient's right on the left; points on a 0-10.5 canvas.
 TREE_LAYOUT = {
@@ -292,8 +223,8 @@ def tree_figure(explanation):
     by_id = {s.id: s for s in e.segments}
     vmax = max((abs(s.shapley) for s in e.segments), default=0.0) or 1.0
     norm = TwoSlopeNorm(vcenter=0.0, vmin=-vmax, vmax=vmax)
-    cmap = colormaps["coolwarm"]
-    fig = _new_figure(7.0, 6.4)
+    cmap = TREE_COLOURS
+    fig = new_figure(7.0, 6.4)
     ax = fig.add_axes((0.03, 0.06, 0.8, 0.86))
     cax = fig.add_axes((0.86, 0.15, 0.03, 0.65))
     ax.add_patch(_aorta())
@@ -306,8 +237,12 @@ def tree_figure(explanation):
             ax.plot(curve[:, 0], curve[:, 1], color="#c8c8c8", lw=1.5, ls=(0, (3, 2)))
             label_colour = "#a0a0a0"
         else:
-            if s is culprit:
-                ax.plot(curve[:, 0], curve[:, 1], color="black", lw=11, solid_capstyle="round")
+            if s is culprit:  # our mark: a dark casing with a pale gap around the culprit
+                ax.plot(curve[:, 0], curve[:, 1], color=_CULPRIT_CASING, lw=14,
+                        solid_capstyle="round")
+                ax.plot(curve[:, 0], curve[:, 1], color="white", lw=10, solid_capstyle="round")
+            else:  # a thin rim keeps near-zero (sand) segments visible on white
+                ax.plot(curve[:, 0], curve[:, 1], color="#b9b2a3", lw=8.2, solid_capstyle="round")
             ax.plot(curve[:, 0], curve[:, 1], color=cmap(norm(s.shapley)), lw=7,
                     solid_capstyle="round")
             label_colour = "black"
@@ -318,7 +253,7 @@ def tree_figure(explanation):
         peak = culprit.locations[e.methods[0]].peak
         if peak is not None and culprit.id in TREE_LAYOUT:
             px, py = _point_at(_smooth(TREE_LAYOUT[culprit.id]), peak.arc_mm / culprit.length_mm)
-            ax.plot(px, py, "*", ms=16, color="#ffd400", mec="black", mew=1.0,
+            ax.plot(px, py, "D", ms=10, mfc="white", mec=_CULPRIT_CASING, mew=2.2,
                     label=f"peak of {e.methods[0]}")
             ax.legend(loc="lower left", fontsize=8, frameon=False)
     ax.set_xlim(0.5, 10.5)

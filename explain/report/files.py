@@ -7,7 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from ..io import check_output_dir, write_image, write_text
-from ..mapping import lumen_label, overlay
+from ..mapping import coverage, curve_lumen_label, overlay
 from .figures import write_figures
 from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
@@ -39,18 +39,22 @@ def write_attributions(explanation, path):
 
 
 def overlay_volumes(explanation):
-    """The overlays on the CT's grid: method -> float32 map, ``"culprit"`` -> uint8 lumen label."""
+    """The overlays on the CT's grid: method -> float32 map, ``"coverage"`` -> float32 splat
+    weight (0 where no cross-section reached), ``"culprit"`` -> uint8 lumen label around the
+    same smooth centerline that sampling follows."""
     e = explanation
     image = e.case.image
     volumes = {m: overlay(list(e.maps[m]), e.sections.sections, like=image) for m in e.methods}
+    volumes["coverage"] = coverage(e.sections.sections, like=image)
     seg = e.case.segment(e.culprit.id)
-    volumes["culprit"] = lumen_label(image, seg.centerline.points_mm, seg.radius_mm,
-                                     label=e.culprit.id)
+    volumes["culprit"] = curve_lumen_label(image, seg.centerline, seg.radius_mm,
+                                           label=e.culprit.id)
     return volumes
 
 
 def write_overlays(explanation, folder, *, volumes=None):
-    """overlays/<method>.nii.gz (maps in the CT's geometry) and overlays/culprit.nii.gz."""
+    """overlays/<method>.nii.gz (maps in the CT's geometry), overlays/coverage.nii.gz (the splat
+    weight: 0 where no cross-section reached) and overlays/culprit.nii.gz (the culprit's lumen)."""
     folder = Path(folder)
     names = overlay_files(explanation.methods)
     volumes = overlay_volumes(explanation) if volumes is None else volumes

@@ -10,6 +10,7 @@ from __future__ import annotations
 import base64
 import json
 
+from ..errors import InputError
 from .html_parts import e as _e, num as _num, table as _table, td as _td, vec as _vec
 from .quality_html import quality_section
 from .quality_figures import FAITHFULNESS_FIGURE
@@ -38,16 +39,19 @@ code{font-size:.92em}
 """
 
 _CAPTIONS = {
-    "contributions": "Contribution of each segment to the target: exact Shapley value over "
-                     "segments and leave-one-out, in the target's units (named on the axis).",
+    "contributions": "Contribution of each segment to the target: Shapley value over segments "
+                     "({shapley}) and leave-one-out, in the target's units (named on the axis).",
     "tree": "Schematic coronary tree (our own drawing, not to scale) coloured by Shapley value; "
-            "the star marks the peak of the first method along the culprit.",
-    "culprit": "The culprit segment straightened: two longitudinal cuts through its "
-               "cross-section stack (through the peak pixel) and the cross-section at the peak, "
-               "CT in grey with the map over it.",
-    "profiles": "Sum of positive attribution (of absolute values for gradient and smoothgrad) "
-                "per cross-section along every vessel (one scale "
-                "for all segments); reference lesions shaded when the case has them.",
+            "the culprit is cased in dark, the diamond marks the peak of the first method along "
+            "it.",
+    "culprit": "The culprit along its arc: on top the map's profile per mm of arc, under it one "
+               "straightened cut through the peak pixel on the same arc axis (CT in grey, the "
+               "map over it), and the cross-section at the peak as an inset tied to its place "
+               "on that axis; the grey window comes from the lumen's HU in this case.",
+    "profiles": "Positive attribution (absolute values for gradient and smoothgrad) per mm of "
+                "arc along every vessel, one scale for all segments (segments differ in length "
+                "but not in cross-sections, so per-section sums would not compare); reference "
+                "lesions shaded when the case has them.",
 }
 
 
@@ -62,6 +66,13 @@ def _where_rows(report):
     return rows
 
 
+def _shapley_cell(segment):
+    """The Shapley value; "value &plusmn; standard error" when it was sampled."""
+    stderr = segment.get("shapley_stderr")
+    value = _num(segment["shapley"], ".3f")
+    return value if stderr is None else f"{value} &plusmn; {_num(stderr, '.3f')}"
+
+
 def _segment_table(report):
     methods = report["settings"]["methods"]
     header = ["segment", "name", "territory", "Shapley", "leave-one-out", "gradient x feature",
@@ -72,7 +83,7 @@ def _segment_table(report):
         row = [_td(f"{_e(s['id'])} ({_e(s['abbr'])})"), _td(_e(s["name"])), _td(_e(s["territory"])),
                # fixed decimals in target units: float noise (~1e-7) of an exact
                # difference reads as 0.000, not as 4.768e-07
-               _td(_num(s["shapley"], ".3f"), True), _td(_num(s["leave_one_out"], ".3f"), True),
+               _td(_shapley_cell(s), True), _td(_num(s["leave_one_out"], ".3f"), True),
                _td(_num(s["gradient_x_feature"], ".3f"), True),
                _td(_e(len(s["winning_channels"])), True),
                _td(_num(s["reference_stenosis_percent"], "g"), True)]
@@ -88,17 +99,40 @@ def _figures(report, images):
     parts = []
     for name in report["files"]["figures"]:
         data = images.get(name)
-        if data is None or name.endswith(FAITHFULNESS_FIGURE):  # shown in its own section
+        if name.endswith(FAITHFULNESS_FIGURE):  # shown in its own section
             continue
+        if not data:
+            raise InputError(
+                f"report_html: figure {name!r} is listed in report['files']['figures'] but "
+                f"{'no' if data is None else 'empty'} PNG bytes were given for it; pass the bytes "
+                "of every listed figure (explain.report.figures.write_figures writes them), or "
+                "leave it out of the list")
         stem = name.rsplit("/", 1)[-1].rsplit(".", 1)[0]
         kind, _, method = stem.partition("_")
-        caption = _CAPTIONS.get(kind, "")
+        caption = _CAPTIONS.get(kind, "").replace("{shapley}", _shapley_kind(report))
         title = f"{method}: " if method else ""
         uri = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
         parts.append(f'<figure><img src="{uri}" alt="{_e(stem)}">'
                      f"<figcaption><b>{_e(title)}</b>{_e(caption)} "
                      f"(<code>{_e(name)}</code>)</figcaption></figure>")
     return "\n".join(parts)
+
+
+def _shapley_kind(report):
+    """"exact over all coalitions", or "sampled ..." with the standard error's whereabouts."""
+    kind = report.get("settings", {}).get("shapley")
+    if kind:
+        return kind
+    sampled = any(s.get("shapley_stderr") is not None for s in report.get("segments", []))
+    return "sampled by permutations; standard error per segment" if sampled else "exact"
+
+
+def _tie_sentence(culprit):
+    tied = culprit.get("tied_with") or []
+    if not tied:
+        return ""
+    return (f" <b>It is level with segment(s) {_e(', '.join(str(t) for t in tied))}</b> (a tie "
+            "within rounding): the lowest SCCT number is named, the model does not single it out.")
 
 
 def _key_values(mapping):
@@ -152,6 +186,7 @@ def report_html(report, images):
         f"({_e(next(iter(culprit['where'])))}).")
     cautions = "".join(f"<li>{_e(c)}</li>" for c in report["cautions"])
     notes = "".join(f"<li>{_e(n)}</li>" for n in report.get("notes", []))
+    warnings = "".join(f"<li>{_e(n)}</li>" for n in report.get("warnings", []))
     files = report["files"]
     file_list = [files["report"], files["table"], files["attributions"],
                  *files["overlays"].values(), *files.get("dicom", []), *files["figures"]]
@@ -165,7 +200,8 @@ def report_html(report, images):
 <h1>Case {_e(report['case_id'])}</h1>
 <div class="caution"><b>Caution.</b> {_e(report['cautions'][0])}</div>
 <div class="answer"><b>{_e(verdict(pred))}</b>
-{_answer(culprit, target)}{where}</div>
+{_answer(culprit, target)}{_tie_sentence(culprit)}{where}</div>
+{f'<div class="caution"><b>Warnings.</b><ul>{warnings}</ul></div>' if warnings else ''}
 {reference}
 <h2>Where along the culprit</h2>
 {_table(["method", "peak (mm of arc)", "half-peak extent (mm)", "peak x, y, z (mm)",

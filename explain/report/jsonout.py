@@ -67,7 +67,8 @@ def _reference_dict(reference):
 
 def overlay_files(methods):
     """Overlay file names, relative to the output folder."""
-    return {**{m: f"overlays/{m}.nii.gz" for m in methods}, "culprit": "overlays/culprit.nii.gz"}
+    return {**{m: f"overlays/{m}.nii.gz" for m in methods}, "coverage": "overlays/coverage.nii.gz",
+            "culprit": "overlays/culprit.nii.gz"}
 
 
 def low_margin_fraction(explanation):
@@ -119,7 +120,8 @@ def explanation_dict(explanation, *, figures=(), dicom=None):
         "target": dict(e.target),
         "culprit": {"segment_id": culprit.id, "segment_abbr": culprit.abbr,
                     "segment_name": culprit.name, "territory": culprit.territory,
-                    "shapley": culprit.shapley, "margin": e.margin, "where": where,
+                    "shapley": culprit.shapley, "margin": e.margin,
+                    "tied_with": list(getattr(e, "tied_with", ())), "where": where,
                     "doubts": list(doubts),
                     "statement": culprit_statement(culprit.label, doubts,
                                                    low_margin=low_margin_fraction(e))},
@@ -129,6 +131,7 @@ def explanation_dict(explanation, *, figures=(), dicom=None):
                   "dicom": [] if dicom is None else list(dicom.files)},
         "cautions": list(e.cautions),
         "notes": list(e.notes) + ([] if dicom is None else list(dicom.notes)),
+        "warnings": list(getattr(e, "warnings", ())),
     }
     if getattr(e, "quality", None) is not None:
         out["quality"] = e.quality.to_dict()

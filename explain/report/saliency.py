@@ -79,23 +79,29 @@ def usable_methods(model, x, methods, *, named, gradcam_layer=None, notes):
     return tuple(m for m in methods if m not in skipped), found, skipped
 
 
-def _one_map(model, x, method, resolved, options, *, baseline_hu, notes):
+def _one_map(model, x, method, resolved, options, *, baseline_hu, notes, warnings):
     from ..attribution import attribute
+    from ..attribution.integrated import completeness_finding
 
     run = {k: v for k, v in options.items() if k != "geometry_from"}
     if method == "integrated_gradients":
         result, delta = attribute(model, x, method=method, target=resolved,
                                   baseline_hu=baseline_hu, return_convergence_delta=True, **run)
-        notes.append(f"integrated_gradients: completeness gap (convergence delta) "
-                     f"{float(delta[0]):.3g} target units")
+        text, warn = completeness_finding(float(result.sum()), float(delta[0]))
+        (warnings if warn else notes).append(text)
     else:
         result = attribute(model, x, method=method, target=resolved, baseline_hu=baseline_hu,
                            **run)
     return result.detach().cpu().numpy()[0].astype(np.float32)
 
 
-def saliency_maps(model, x, methods, resolved, options, *, baseline_hu, seed, progress, notes):
+def saliency_maps(model, x, methods, resolved, options, *, baseline_hu, seed, progress, notes,
+                  warnings=None):
     """One map per method, (S, N, H, W) float32, in the order of ``methods``.
+
+    An Integrated Gradients completeness gap above
+    :data:`explain.attribution.integrated.COMPLETENESS_SHARE` goes to ``warnings`` (to
+    ``notes`` when no list is given), a smaller one to ``notes``.
 
     Raises
     ------
@@ -112,7 +118,8 @@ def saliency_maps(model, x, methods, resolved, options, *, baseline_hu, seed, pr
         torch.manual_seed(seed)
         try:
             maps[method] = _one_map(model, x, method, resolved, options[method],
-                                    baseline_hu=baseline_hu, notes=notes)
+                                    baseline_hu=baseline_hu, notes=notes,
+                                    warnings=notes if warnings is None else warnings)
         except (CulpritLensError, RuntimeError, ValueError, TypeError, IndexError) as exc:
             done = ", ".join(maps) or "none"
             cause = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__

@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .. import CAUTION, __version__
-from .explanation import _check_arguments, _sampling, method_settings
+from .explanation import _check_arguments, _inside_range, _sampling, arc_steps, method_settings
 
 __all__ = ["SANITY_FORMAT", "SanityCheck", "run_sanity"]
 
@@ -126,14 +126,17 @@ def run_sanity(model, case, *, methods=None, target="auto", points=None, size=No
     from ..quality.sanity import cascading_randomisation, check_has_parameters
     from ..quality.stability import augmentation_stability, check_augmentations
 
-    methods, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
+    methods, _, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
     check_has_parameters(model)
     if stability:
         check_augmentations(rotations_deg, jitter_draws, jitter_rms_mm, seed=seed)
-    sampling = _sampling(model, points, size, pixel_mm)
-    x = sample_case(case, **sampling).tensor()
+    sampling, model = _sampling(model, points, size, pixel_mm, [])
+    sections = sample_case(case, **sampling)
+    x = sections.tensor()
     resolved = fixed_target(model, x, target)
-    options = {m: method_settings(m, tuple(x.shape[2:]), seed=int(seed)) for m in methods}
+    steps, range_hu = arc_steps(sections), _inside_range(methods, sections, case)
+    options = {m: method_settings(m, tuple(x.shape[2:]), seed=int(seed), arc_step_mm=steps,
+                                  range_hu=range_hu) for m in methods}
     common = dict(methods=methods, target=resolved, method_options=options,
                   baseline_hu=baseline_hu, seed=int(seed))
     _say(progress, f"maps of the trained model ({', '.join(methods)})")

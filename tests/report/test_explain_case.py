@@ -87,7 +87,15 @@ def test_settings_record_every_option(explained):
     assert (s["points"], s["size"], s["pixel_mm"], s["baseline_hu"], s["seed"]) == (
         20, 11, 0.5, 350.0, 3)
     assert s["methods"] == ["integrated_gradients", "occlusion"]
-    assert s["method_options"]["occlusion"] == {"window": (4, 8, 8), "stride": (2, 8, 8)}
+    # Occlusion hides 4 mm of arc: round(4 mm / (length / 19 spacings)) cross-sections on each
+    # segment, slid by half a window (arithmetic from the segments' own lengths).
+    occ = s["method_options"]["occlusion"]
+    lengths = [seg.centerline.length_mm for seg in sorted(e.case.segments, key=lambda g: g.id)]
+    along = [min(20, max(1, round(4.0 / (length / 19)))) for length in lengths]
+    assert occ["window_mm"] == 4.0
+    assert occ["window"] == [[n, 8, 8] for n in along]
+    assert occ["stride"] == [[max(1, n // 2), 8, 8] for n in along]
+    assert occ["arc_step_mm"] == pytest.approx([length / 19 for length in lengths])
     assert s["target"] == 1
     assert e.cautions[0] == CAUTION
     assert "culprit 7 (mLAD)" in repr(e)

@@ -1,0 +1,37 @@
+"""An Integrated Gradients completeness gap above 5 % of |F(x) - F(baseline)| is a warning.
+
+References: captum ``IntegratedGradients`` and its convergence delta; completeness
+(Sundararajan, Taly and Yan 2017, Proposition 1) and their advice that the sum come within 5 %.
+"""
+
+from __future__ import annotations
+
+import pytest
+import torch
+from captum.attr import IntegratedGradients
+
+from explain.attribution.integrated import COMPLETENESS_SHARE, completeness_finding
+
+
+def _steep(x):  # F(x) = sum(x^4): far from linear, so a 2-step Riemann sum misses much
+    return (x ** 4).sum(dim=1)
+
+
+@pytest.mark.parametrize("steps, warned", [(2, True), (200, False)])
+def test_gap_from_captum_is_judged_against_the_change_of_the_target(steps, warned):
+    x = torch.tensor([[1.0, 0.5, 1.5]], dtype=torch.float64)
+    attr, delta = IntegratedGradients(_steep).attribute(
+        x, baselines=0.0, n_steps=steps, method="riemann_middle", return_convergence_delta=True)
+    change = float(_steep(x) - _steep(torch.zeros_like(x)))
+    text, warning = completeness_finding(float(attr.sum()), float(delta))
+    assert warning is warned
+    assert (abs(float(delta)) / abs(change) > COMPLETENESS_SHARE) is warned
+    assert f"{abs(change):.3g}" in text
+    assert ("use more steps" in text) is warned
+
+
+def test_share_boundary():
+    assert COMPLETENESS_SHARE == 0.05
+    assert completeness_finding(1.0 + 0.049, 0.049)[1] is False  # F(x) - F(b) = 1.0
+    assert completeness_finding(1.0 + 0.051, 0.051)[1] is True
+    assert completeness_finding(0.3, 0.3)[1] is True  # no change of the target at all
