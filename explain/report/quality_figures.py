@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 from matplotlib import colormaps
 
-from .figures import _new_figure
+from .figures import new_figure
 
 __all__ = ["FAITHFULNESS_FIGURE", "faithfulness_figure"]
 
@@ -59,7 +59,7 @@ def _section_panel(ax, sec, seg, unit):
 
 def faithfulness_figure(faithfulness, unit):
     """The figure, from report.json's ``quality.faithfulness`` and the target's unit name."""
-    fig = _new_figure(10.0, 4.4)
+    fig = new_figure(10.0, 4.4)
     left, right = fig.subplots(1, 2)
     seg = faithfulness["segments"]
     _segment_panel(left, seg, unit)
