@@ -11,7 +11,7 @@ import pytest
 import torch
 
 from explain.attribution import attribute, trace_segments
-from explain.attribution.gradcam import upsample_at_centres
+from explain.attribution.gradcam import LayerNotUsable, upsample_at_centres
 from explain.attribution.occlusion import occlusion
 from explain.errors import InputError, ModelError
 from explain.model import wrap_model
@@ -69,7 +69,7 @@ def test_occlusion_stride_defaults_to_the_window(small):
     torch.testing.assert_close(occlusion(w, x, lambda out: out[:, 0], window=2, baseline_hu=-50.0), m)
 
 
-def test_gradcam_output_of_the_wrong_shape_is_a_model_error():
+def test_gradcam_output_of_the_wrong_shape_is_refused_as_not_usable():
     class Flat(torch.nn.Module):
         def __init__(self):
             super().__init__()
@@ -86,7 +86,8 @@ def test_gradcam_output_of_the_wrong_shape_is_a_model_error():
             return self.head(self.encode_segments(x).max(dim=1).values)
 
     w = wrap_model(Flat())
-    with pytest.raises(ModelError, match=r"gradcam layer 'lin': output per segment has shape"):
+    # LayerNotUsable: the refusal a default Grad-CAM is skipped on, and a named one reports
+    with pytest.raises(LayerNotUsable, match=r"gradcam layer 'lin': output per segment has shape"):
         attribute(w, h.patient(s=2, n=4, h=4, w=4), method="gradcam", target=0, layer="lin")
 
 
