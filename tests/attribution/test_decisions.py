@@ -248,14 +248,14 @@ def test_sampled_shapley_is_the_mean_over_the_seeded_orders():
     def v(members):
         return float(np.max(np.vstack([np.zeros(2), feats[list(members)]]), axis=0).sum())
 
-    rng = np.random.default_rng(9)
+    rng = np.random.default_rng(3)
     gains = np.zeros((7, 3))
     for p in range(7):
         order = rng.permutation(3)
         for j, s in enumerate(order):
             gains[p, s] = v(order[: j + 1]) - v(order[:j])
     tr = trace_segments(wrap_model(SectionMeans()), x, target=0, max_exact=2, n_permutations=7,
-                        seed=9, internal_batch_size=8)  # 2 orders per head call: 2 + 2 + 2 + 1
+                        seed=3, internal_batch_size=8)  # 2 orders per head call: 2 + 2 + 2 + 1
     np.testing.assert_allclose(tr.shapley, gains.mean(axis=0), atol=1e-5)
     np.testing.assert_allclose(tr.shapley_stderr, gains.std(axis=0, ddof=1) / math.sqrt(7),
                                atol=1e-5)
