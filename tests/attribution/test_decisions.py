@@ -236,3 +236,33 @@ def test_reference_gradcam_map_equals_the_cell_value_at_its_centre(reference):
     torch.testing.assert_close(centres, cam.float(), rtol=1e-4, atol=1e-6)
     assert float(cam.max()) > 0  # the check is not about an all-zero map
     assert math.isclose(float(ours.max()), float(cam.max()), rel_tol=1e-4)
+
+
+def test_sampled_shapley_is_the_mean_over_the_seeded_orders():
+    # Permutation sampling (Castro, Gomez, Tejada 2009): the mean marginal gain over orders
+    # drawn one after another from numpy's default_rng(seed).permutation, written here as a
+    # plain loop on v(T) = sum over channels of the largest feature in T (0 HU baseline).
+    x = _redundant_patient()
+    feats = np.array([[10.0, 0.0], [8.0, 0.0], [0.0, 5.0]])
+
+    def v(members):
+        return float(np.max(np.vstack([np.zeros(2), feats[list(members)]]), axis=0).sum())
+
+    rng = np.random.default_rng(3)
+    gains = np.zeros((7, 3))
+    for p in range(7):
+        order = rng.permutation(3)
+        for j, s in enumerate(order):
+            gains[p, s] = v(order[: j + 1]) - v(order[:j])
+    tr = trace_segments(wrap_model(SectionMeans()), x, target=0, max_exact=2, n_permutations=7,
+                        seed=3, internal_batch_size=8)  # 2 orders per head call: 2 + 2 + 2 + 1
+    np.testing.assert_allclose(tr.shapley, gains.mean(axis=0), atol=1e-5)
+    np.testing.assert_allclose(tr.shapley_stderr, gains.std(axis=0, ddof=1) / math.sqrt(7),
+                               atol=1e-5)
+    assert tr.shapley.sum() == pytest.approx(15.0, abs=1e-4)  # every order sums to v(all)
+
+
+def test_low_margin_uses_the_difference_of_all_and_none():
+    # |v(all) - v(none)| = 0.5 here, so a margin of 0.06 is not low (0.06 >= 0.05)
+    assert culprit_doubts([0.3, 0.24], 0.06, 1.0, 0.5) == ()
+    assert culprit_doubts([0.3, 0.26], 0.04, 1.0, 0.5) == ("low_margin",)

@@ -112,6 +112,8 @@ def test_trace_repr_and_options_by_hand():
     assert sampled.n_permutations == 1 and np.isnan(sampled.shapley_stderr).all()
     assert "1 permutations" in repr(sampled)
     np.testing.assert_allclose(sampled.shapley, [0.0, 250.0, 0.0])  # one order, one gain
+    two = trace_segments(w, x, target=0, baseline_hu=350.0, max_exact=2, n_permutations=2)
+    np.testing.assert_allclose(two.shapley_stderr, 0.0, atol=1e-6)  # every order gives the same
     for bad in (0, 21, True, 2.0):
         with pytest.raises(InputError, match=r"max_exact: expected an integer 1..20"):
             trace_segments(w, x, target=0, max_exact=bad)
