@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import copy
 import math
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -230,7 +231,11 @@ def _float64_head(wrapped):
     """A float64 copy of ``wrapped`` (same split), or (None, reason) when the model refuses."""
     try:
         twin = copy.copy(wrapped)
-        twin.module = copy.deepcopy(wrapped.module).double()
+        # TorchScript modules warn about .grad of non-leaf tensors while converting; the copy is
+        # only trusted after the agreement check in _value_function, so the warning is moot.
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)
+            twin.module = copy.deepcopy(wrapped.module).double()
         return twin, None
     except (RuntimeError, TypeError, ValueError, AttributeError) as exc:
         return None, f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
