@@ -220,7 +220,11 @@ def run_audit(cohort_csv, model, out_dir, *, workers=None, scheduler=None, weigh
                 if (read_row(row_path(out_dir, r.folder)) or {}).get("status") == "ok"}
         base = {"model": str(model), "weights": state["model"]["weights"],
                 "grade_labels": None if grade_labels is None else list(grade_labels),
-                "methods": list(methods), "explain_options": settings}
+                "methods": list(methods),
+                # no --methods: explain_case's defaults, so one that does not apply to this
+                # model is skipped (with a note) instead of failing every case
+                "explain_options": {**settings, "methods": None}
+                if explain_options.get("methods") is None else settings}
 
         def died(task, reason):
             row = rowmod.failed_row(case_id=task["case_id"], case=task["case"], seconds=None,
