@@ -15,7 +15,7 @@ from explain.model import wrap_model
 
 
 class Additive(torch.nn.Module):
-    """Segment s owns channel s; its feature is max(mean HU - 100, 0); head 1e4 + sum."""
+    """Segment s (up to 3) owns channel s; its feature is max(mean HU - 100, 0); head 1e4 + sum."""
 
     def __init__(self, float32_only=False):
         super().__init__()
@@ -25,7 +25,8 @@ class Additive(torch.nn.Module):
     def encode_segments(self, x):
         b, s = x.shape[:2]
         level = torch.relu(x.mean(dim=(2, 3, 4)) - 100.0)  # (B, S)
-        return level[:, :, None] * torch.eye(2, dtype=x.dtype)[:s][None]  # (B, S, 2)
+        # three channels: room for the extra segment the wrapper's independence check adds
+        return level[:, :, None] * torch.eye(3, dtype=x.dtype)[:s][None]  # (B, S, 3)
 
     def head(self, pooled):
         if self.float32_only and pooled.dtype != torch.float32:
