@@ -300,8 +300,13 @@ def _check_arguments(model, methods, seed, baseline_hu):
     return methods, baseline_hu
 
 
+#: Which pass batch (explain.attribution.budget.PassBatches) each batched method uses.
+_BATCH_OF = {"integrated_gradients": "integrated_gradients", "smoothgrad": "integrated_gradients",
+             "occlusion": "occlusion"}
+
+
 def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, seed, progress,
-                   notes):
+                   notes, batches=None):
     """One map per method, (S, N, H, W) float32, and the options each used; notes appended."""
     import torch
 
@@ -313,21 +318,24 @@ def _saliency_maps(model, x, methods, resolved, stack_shape, *, baseline_hu, see
         options = method_settings(method, stack_shape, seed=seed)
         method_options[method] = options
         torch.manual_seed(seed)
+        batch = None if batches is None or method not in _BATCH_OF else getattr(
+            batches, _BATCH_OF[method])
         if method == "integrated_gradients":
             result, delta = attribute(model, x, method=method, target=resolved,
                                       baseline_hu=baseline_hu, return_convergence_delta=True,
-                                      **options)
+                                      internal_batch_size=batch, **options)
             notes.append(f"integrated_gradients: completeness gap (convergence delta) "
                          f"{float(delta[0]):.3g} target units")
         else:
             result = attribute(model, x, method=method, target=resolved,
-                               baseline_hu=baseline_hu, **options)
+                               baseline_hu=baseline_hu, internal_batch_size=batch, **options)
         maps[method] = result.detach().cpu().numpy()[0].astype(np.float32)
     return maps, method_options
 
 
 def explain_case(model, case, *, methods=None, target="auto", points=None, size=None,
-                 pixel_mm=None, baseline_hu=0.0, seed=0, progress=None):
+                 pixel_mm=None, baseline_hu=0.0, seed=0, progress=None,
+                 memory_budget_gb=None):
     """Explain one case with a wrapped model.
 
     Parameters
@@ -350,6 +358,11 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         Seeds torch before each sampled step (SmoothGrad noise, sampled Shapley values).
     progress : callable(str), optional
         Called with a short message before each long step.
+    memory_budget_gb : float, optional
+        Working memory the model passes may take, GB; None means
+        :data:`~explain.attribution.budget.DEFAULT_MEMORY_BUDGET_GB` (1.0). It sets how many
+        Integrated Gradients steps, occlusion windows and Shapley coalitions go through the
+        model per call (:func:`~explain.attribution.budget.batches_for_budget`).
 
     Returns
     -------
@@ -358,10 +371,13 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     import torch
 
     from ..attribution import trace_segments
+    from ..attribution.budget import DEFAULT_MEMORY_BUDGET_GB, batches_for_budget, check_budget
     from ..geometry import sample_case
     from ..model.targets import resolve_target
 
     methods, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
+    memory_budget_gb = check_budget(DEFAULT_MEMORY_BUDGET_GB if memory_budget_gb is None
+                                    else memory_budget_gb, field="memory_budget_gb")
     sampling = _sampling(model, points, size, pixel_mm)
 
     _say(progress, f"sampling cross-sections of {len(case.segments)} segments "
@@ -381,13 +397,15 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     with torch.no_grad():
         target_value = float(resolved(output)[0])
 
+    batches = batches_for_budget(model, x, memory_budget_gb=memory_budget_gb)
     _say(progress, "tracing segments (winning channels, leave-one-out, Shapley)")
-    trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed))
+    trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed),
+                           internal_batch_size=batches.head)
 
     notes = list(case.notes)
     maps, method_options = _saliency_maps(model, x, methods, resolved, sections.values.shape[1:],
                                           baseline_hu=baseline_hu, seed=int(seed),
-                                          progress=progress, notes=notes)
+                                          progress=progress, notes=notes, batches=batches)
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
@@ -399,6 +417,9 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         "peak_pixel": "largest value in the peak cross-section, ties toward the centerline",
         "extent_rule": "contiguous run at or above half the peak profile value",
         "culprit_rule": "largest Shapley value over segments",
+        "memory_budget_gb": memory_budget_gb,
+        "batch_sizes": {k: getattr(batches, k) for k in ("integrated_gradients", "occlusion",
+                                                         "head")},
         "library_version": __version__,
     }
     return Explanation(

@@ -7,13 +7,14 @@ from pathlib import Path
 import numpy as np
 
 from ..io import check_output_dir, write_image, write_text
-from ..mapping import lumen_label, overlay
+from ..geometry import place
+from ..mapping import lumen_label, overlay_box
 from .figures import write_figures
 from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
 from .tables import segments_csv
 
-__all__ = ["check_out_dir", "write_into", "write_overlays", "write_attributions"]
+__all__ = ["check_out_dir", "write_into", "write_overlays", "write_overlay", "write_attributions"]
 
 
 def check_out_dir(out_dir, *, force=False, field="--out"):
@@ -38,6 +39,16 @@ def write_attributions(explanation, path):
     return path
 
 
+def write_overlay(maps, sections, image, path):
+    """One overlay file: splatted into the vessels' bounding box, placed in the CT's grid only to
+    be written, and freed before the next (one scan-sized float32 volume at a time)."""
+    box = overlay_box(list(maps), sections, like=image)
+    volume = place(box, image)
+    del box
+    write_image(volume, path)
+    return path
+
+
 def write_overlays(explanation, folder):
     """overlays/<method>.nii.gz (maps in the CT's geometry) and overlays/culprit.nii.gz."""
     e = explanation
@@ -45,8 +56,7 @@ def write_overlays(explanation, folder):
     image = e.case.image
     names = overlay_files(e.methods)
     for method in e.methods:
-        volume = overlay(list(e.maps[method]), e.sections.sections, like=image)
-        write_image(volume, folder / names[method])
+        write_overlay(e.maps[method], e.sections.sections, image, folder / names[method])
     seg = e.case.segment(e.culprit.id)
     label = lumen_label(image, seg.centerline.points_mm, seg.radius_mm, label=e.culprit.id)
     write_image(label, folder / names["culprit"])
