@@ -228,17 +228,17 @@ def place(box, like, *, weight=False):
     if tuple(int(n) for n in grid.size) != tuple(box.image_size):
         raise InputError(f"like: size {tuple(grid.size)} is not the size {box.image_size} the "
                          "box was splatted for; place it in the image it was made for")
-    # np.zeros leaves untouched pages unallocated: until the copy into the image below, only
-    # the box's pages are resident.
-    volume = np.zeros(grid.shape, dtype=np.float32)
     values = box.weight.astype(np.float32) if weight else box.mean
-    (i0, j0, k0), (nk, nj, ni) = box.start, values.shape
-    volume[k0:k0 + nk, j0:j0 + nj, i0:i0 + ni] = values
-    return _to_image(volume, grid, like)
-
-
-def _to_image(flat, grid, like):
-    image = sitk.GetImageFromArray(flat.reshape(grid.shape))
+    size = np.asarray(box.image_size, dtype=np.int64)
+    if values.size == 0:
+        image = sitk.Image([int(n) for n in size], sitk.sitkFloat32)  # zero-filled
+    else:
+        # Padding the box out to the whole grid writes the scan-sized volume once: no second
+        # whole-image buffer is ever held (numpy's would be copied into SimpleITK's).
+        lower = np.asarray(box.start, dtype=np.int64)
+        upper = size - lower - np.asarray(values.shape[::-1])
+        image = sitk.ConstantPad(sitk.GetImageFromArray(values), [int(n) for n in lower],
+                                 [int(n) for n in upper], 0.0)
     image.SetOrigin(like.GetOrigin())
     image.SetSpacing(like.GetSpacing())
     image.SetDirection(like.GetDirection())

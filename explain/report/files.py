@@ -42,10 +42,9 @@ def write_attributions(explanation, path):
 def write_overlay(maps, sections, image, path):
     """One overlay file: splatted into the vessels' bounding box, placed in the CT's grid only to
     be written, and freed before the next (one scan-sized float32 volume at a time)."""
-    box = overlay_box(list(maps), sections, like=image)
-    volume = place(box, image)
-    del box
+    volume = place(overlay_box(list(maps), sections, like=image), image)
     write_image(volume, path)
+    del volume
     return path
 
 

@@ -12,8 +12,13 @@ import numpy as np
 import pytest
 import SimpleITK as sitk
 
+import sys
+from pathlib import Path
+
 from explain.geometry import Centerline, SplatBox, place, sample_cross_sections, splat, splat_box
-from explain.geometry._grid import Grid, corners, trilinear
+
+sys.path.insert(0, str(Path(__file__).parent))
+from whole_image import whole_image_sample, whole_image_splat  # noqa: E402
 
 
 def _image(dtype=np.int16, size=(30, 26, 22), seed=0):
@@ -25,21 +30,6 @@ def _image(dtype=np.int16, size=(30, 26, 22), seed=0):
     c, s = np.cos(0.3), np.sin(0.3)
     image.SetDirection((c, -s, 0.0, s, c, 0.0, 0.0, 0.0, 1.0))
     return image
-
-
-def _whole_image_sample(image, cs):
-    """The path before the crop: every voxel as float32, corners on the whole grid."""
-    full = sitk.Cast(image, sitk.sitkFloat32)
-    grid = Grid(full, with_values=False)
-    flat = np.ascontiguousarray(sitk.GetArrayFromImage(full)).reshape(-1)
-    n, h, w = cs.shape
-    index = grid.index_of(cs.points_mm).reshape(n, h * w, 3)
-    base, offsets, wi, wj, wk, inside = corners(grid.size, index[..., 0], index[..., 1],
-                                                index[..., 2])
-    values = trilinear(flat, base, offsets, wi, wj, wk)
-    if inside is not None:
-        values[~inside] = cs.fill_value
-    return values.reshape(n, h, w), index
 
 
 def _lines(image):
@@ -62,39 +52,8 @@ def test_cropped_sampling_equals_whole_image_float32(dtype):
     for n, line in enumerate(_lines(image)):
         cs = sample_cross_sections(image, line, points=9, size=7, pixel_mm=0.7,
                                    rotation_deg=15.0 * n)
-        expected, _ = _whole_image_sample(image, cs)
+        expected, _ = whole_image_sample(image, cs)
         np.testing.assert_array_equal(cs.values, expected)
-
-
-def _whole_image_splat(maps, stacks, like):
-    """The path before the bounding box: one bincount over the whole image's flat span."""
-    grid = Grid(like, with_values=False)
-    flats, weights, values = [], [], []
-    for m, cs in zip(maps, stacks):
-        index = grid.index_of(cs.points_mm.reshape(-1, 3))
-        base, (di, dj, dk), wi, wj, wk, inside = grid.corners(
-            index[:, 0], index[:, 1], index[:, 2], dtype=np.float64)
-        v = np.asarray(m, dtype=np.float64).reshape(-1)
-        if inside is not None:
-            base, v, wi, wj, wk = (a[inside] for a in (base, v, wi, wj, wk))
-        # corner (i, j, k) major, pixel minor: the order the sums were always taken in
-        for a, fa in ((0, 1.0 - wi), (di, wi)):
-            for b, fb in ((0, 1.0 - wj), (dj, wj)):
-                for c, fc in ((0, 1.0 - wk), (dk, wk)):
-                    w = (fa * fb) * fc
-                    flats.append(base + (a + b + c))
-                    weights.append(w)
-                    values.append(w * v)
-    flat, weight_of, value_of = (np.concatenate(x) for x in (flats, weights, values))
-    n_vox = int(np.prod(grid.size))
-    mean, weight = np.zeros(n_vox, dtype=np.float32), np.zeros(n_vox)
-    lo, hi = int(flat.min()), int(flat.max()) + 1
-    span_weight = np.bincount(flat - lo, weights=weight_of, minlength=hi - lo)
-    span_total = np.bincount(flat - lo, weights=value_of, minlength=hi - lo)
-    np.divide(span_total, span_weight, out=span_total, where=span_weight > 0)
-    mean[lo:hi] = span_total
-    weight[lo:hi] = span_weight
-    return mean.reshape(grid.shape), weight.astype(np.float32).reshape(grid.shape)
 
 
 def test_splat_box_placed_equals_whole_grid_accumulation():
@@ -105,7 +64,7 @@ def test_splat_box_placed_equals_whole_grid_accumulation():
     maps = [rng.normal(size=cs.shape).astype(np.float32) for cs in stacks]
     box = splat_box(maps, stacks, like=image)
     assert isinstance(box, SplatBox)
-    whole, whole_weight = _whole_image_splat(maps, stacks, image)
+    whole, whole_weight = whole_image_splat(maps, stacks, image)
     np.testing.assert_array_equal(sitk.GetArrayFromImage(place(box, image)), whole)
     np.testing.assert_array_equal(sitk.GetArrayFromImage(place(box, image, weight=True)),
                                   whole_weight)
@@ -114,7 +73,7 @@ def test_splat_box_placed_equals_whole_grid_accumulation():
     np.testing.assert_array_equal(sitk.GetArrayFromImage(out_weight), whole_weight)
     # One vessel's box is the bounding box of the voxels it reaches, no more.
     small = splat_box(maps[:1], stacks[:1], like=image)
-    _, reached = _whole_image_splat(maps[:1], stacks[:1], image)
+    _, reached = whole_image_splat(maps[:1], stacks[:1], image)
     hit = np.nonzero(reached > 0)  # k, j, i
     assert small.start == tuple(int(a.min()) for a in hit[::-1])
     assert small.mean.shape == tuple(int(a.max() - a.min()) + 1 for a in hit)
