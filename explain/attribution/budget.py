@@ -32,9 +32,11 @@ DEFAULT_MEMORY_BUDGET_GB = 1.0
 #: occlusion windows per encoder call, head rows per call).
 BATCH_CAPS = {"integrated_gradients": 8, "occlusion": 16, "head": DEFAULT_HEAD_BATCH}
 
-# A backward pass holds the saved activations and, transiently, their gradients: twice the
-# saved bytes is the working set of one item (common practice, no source).
-_BACKWARD_FACTOR = 2.0
+# A pass holds the saved activations, the forward's temporaries and, during the backward
+# pass, their gradients: four times the saved bytes is the working set of one item. Our own
+# calibration (no source): on the reference network one Integrated Gradients step took 3.3
+# times the bytes autograd saved (bench/memory.py, resident memory during that pass).
+_BACKWARD_FACTOR = 4.0
 
 
 @dataclass(frozen=True)

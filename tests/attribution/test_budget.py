@@ -25,7 +25,7 @@ class Squares(torch.nn.Module):
 S, N, H, W = 4, 6, 5, 5
 SEGMENT_BYTES = 2 * N * H * W * 4          # pow's saved input + the probe input
 HEAD_BYTES = 1 * 4                          # the pooled row (C = 1)
-STEP_BYTES = 2 * S * SEGMENT_BYTES + 2 * HEAD_BYTES   # a backward pass doubles (our rule)
+STEP_BYTES = 4 * S * SEGMENT_BYTES + 4 * HEAD_BYTES   # four times the saved bytes (our rule)
 
 
 @pytest.fixture
