@@ -37,8 +37,13 @@ def _cmd_phantom(args):
 
 
 def _explain_options(args):
+    if args.memory_budget_gb is not None:
+        from .attribution.budget import check_budget
+
+        check_budget(args.memory_budget_gb, field="--memory-budget-gb")
     return dict(methods=args.methods, target=args.target, points=args.points, size=args.size,
-                pixel_mm=args.pixel_mm, baseline_hu=args.baseline_hu, seed=args.seed)
+                pixel_mm=args.pixel_mm, baseline_hu=args.baseline_hu, seed=args.seed,
+                memory_budget_gb=args.memory_budget_gb)
 
 
 def _cmd_explain(args):
@@ -52,6 +57,7 @@ def _cmd_explain(args):
     # computing.
     check_out_dir(args.out, force=args.force)
     quality = _quality_option(args)
+    options = _explain_options(args)
     case = load_case(args.case)
     from .model import load_model
     from .report import explain_case
@@ -59,7 +65,7 @@ def _cmd_explain(args):
 
     model = load_model(args.model, weights=args.weights, grade_labels=labels)
     explanation = explain_case(model, case, progress=progress, quality=quality,
-                               gradcam_layer=args.gradcam_layer, **_explain_options(args))
+                               gradcam_layer=args.gradcam_layer, **options)
     html = explanation.write(args.out, force=args.force, progress=progress,
                              dicom=not args.no_dicom)
     print(verdict(explanation.prediction))
@@ -117,6 +123,10 @@ def _add_explain_options(cmd):
     cmd.add_argument("--baseline-hu", type=float, default=0.0,
                      help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
     cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
+    cmd.add_argument("--memory-budget-gb", type=float, default=None, metavar="GB",
+                     help="working memory the model passes may take, in GB (default 1.0); sets "
+                          "how many Integrated Gradients steps, occlusion windows and Shapley "
+                          "coalitions run per model call. In an audit, each worker keeps to it")
 
 
 def _flag_thresholds(items):

@@ -49,6 +49,7 @@ __all__ = [
     "half_peak_extent",
     "locate",
     "overlay",
+    "overlay_box",
     "lumen_label",
     "profile_per_mm",
     "coverage",
@@ -307,12 +308,26 @@ def overlay(maps, sections, *, like):
     SimpleITK.Image
         float32; voxels no cross-section reaches are 0.
     """
-    from .geometry import splat  # the step before this one
+    from .geometry import place
+
+    return place(overlay_box(maps, sections, like=like), like)
+
+
+def overlay_box(maps, sections, *, like):
+    """:func:`overlay` held in the bounding box of the voxels reached (a few MB, not the scan).
+
+    ``explain.geometry.place(box, like)`` gives the volume :func:`overlay` returns, bit for
+    bit; writers call it only when the file is written, one method at a time.
+
+    Returns
+    -------
+    explain.geometry.SplatBox
+    """
+    from .geometry import splat_box  # the step before this one
 
     if len(maps) != len(sections):
         raise InputError(f"overlay: {len(maps)} maps for {len(sections)} cross-section stacks")
-    image = splat([np.asarray(m, dtype=np.float32) for m in maps], list(sections), like=like)
-    return sitk.Cast(image, sitk.sitkFloat32)
+    return splat_box([np.asarray(m, dtype=np.float32) for m in maps], list(sections), like=like)
 
 
 def _index_affine(image):

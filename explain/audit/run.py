@@ -35,7 +35,8 @@ __all__ = ["AuditResult", "run_audit", "AUDIT_FORMAT", "EXPLAIN_OPTIONS"]
 AUDIT_FORMAT = "culprit-lens-audit/1"
 
 #: Options passed on to :func:`explain.explain_case` for every case.
-EXPLAIN_OPTIONS = ("methods", "target", "baseline_hu", "points", "size", "pixel_mm", "seed")
+EXPLAIN_OPTIONS = ("methods", "target", "baseline_hu", "points", "size", "pixel_mm", "seed",
+                   "memory_budget_gb")
 
 
 @dataclass(frozen=True)

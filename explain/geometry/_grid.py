@@ -32,8 +32,8 @@ class Grid:
     origin : (3,) float64, mm
     index_matrix : (3, 3) float64, 1/mm
         ``inv(D @ diag(spacing))``.
-    flat : (nk * nj * ni,) float32 or None
-        The voxels in C order, if asked for.
+
+    With ``with_values`` the grid keeps the image, whose voxels :meth:`crop` reads.
     """
 
     def __init__(self, image, *, name="image", with_values=True):
@@ -58,15 +58,9 @@ class Grid:
         if abs(np.linalg.det(affine)) < 1e-12:
             raise InputError(f"{name}: its direction matrix is singular; the image is malformed")
         self.index_matrix = np.linalg.inv(affine)
-        self.flat = None
-        if with_values:
-            if image.GetPixelID() == sitk.sitkFloat32:
-                # A view, no copy: the caller keeps `image` alive while this grid is used.
-                self._image = image
-                array = sitk.GetArrayViewFromImage(image)
-            else:
-                array = sitk.GetArrayFromImage(sitk.Cast(image, sitk.sitkFloat32))
-            self.flat = np.ascontiguousarray(array).reshape(-1)
+        # The voxels are read only where a crop asks for them (see `crop`), in the image's own
+        # pixel type until then: a full-size scan is never copied to float32.
+        self._image = image if with_values else None
 
     def index_of(self, points_mm):
         """Continuous index (i, j, k) of physical points, shape ``(..., 3)``."""
@@ -82,51 +76,114 @@ class Grid:
         return out
 
     def corners(self, ci, cj, ck, *, dtype=np.float32):
-        """Floor corner, trilinear weights and inside mask of continuous indices.
+        """Floor corner, trilinear weights and inside mask: :func:`corners` on this grid."""
+        return corners(self.size, ci, cj, ck, dtype=dtype)
 
-        Parameters
-        ----------
-        ci, cj, ck : float64 arrays of one shape
-            Continuous index along i, j, k.
+    def crop(self, ci, cj, ck):
+        """The voxels the trilinear corners of these indices read, as float32, and the indices
+        shifted into that block.
+
+        Per axis the block runs from the floor of the smallest index to one past the floor of
+        the largest, kept within the image and at least two voxels long (one for an axis of one
+        voxel). The shifted indices ``c - lo`` are exact in float64, and the block's clipping,
+        top-voxel rule and inside mask give the same corners, weights and mask as the whole
+        image would: sampling a block gives the very values sampling the whole image gives.
 
         Returns
         -------
-        base : intp array, same shape
-            Flat index of the lower corner (clipped inside the grid).
-        offsets : (3,) int
-            Flat step to the upper corner along i, j, k (0 along an axis of one voxel).
-        wi, wj, wk : arrays of ``dtype`` (float32 by default), same shape
-            Weight of the upper corner along each axis.
-        inside : bool array or None
-            Index within ``[0, size - 1]`` (up to ``INDEX_TOLERANCE``) on all three axes;
-            None when every point is inside.
+        block : VoxelBlock
+        ci, cj, ck : float64 arrays
+            The indices relative to the block's first voxel.
         """
-        ni, nj, nk = (int(n) for n in self.size)
-        inside = None
-        floors, weights = [], []
-        for c, n in ((ci, ni), (cj, nj), (ck, nk)):
-            # Range checks first: the masks and clipping are only paid for when needed.
-            low, high = float(c.min()), float(c.max())
-            if low < -INDEX_TOLERANCE or high > n - 1 + INDEX_TOLERANCE:
-                ok = (c >= -INDEX_TOLERANCE) & (c <= n - 1 + INDEX_TOLERANCE)
-                inside = ok if inside is None else inside & ok
-            if low < 0.0 or high > n - 1:
-                c = np.clip(c, 0.0, n - 1)
-            # c >= 0, so truncation is floor; the top voxel uses the cell below it (weight 1).
-            f = c.astype(np.intp)
-            if high >= n - 1:
-                np.minimum(f, max(n - 2, 0), out=f)
-            w = np.empty(c.shape, dtype=dtype)
-            np.subtract(c, f, out=w, casting="same_kind")
-            floors.append(f)
-            weights.append(w)
-        fi, fj, fk = floors
-        fk *= ni * nj
-        fj *= ni
-        fk += fj
-        fk += fi
-        offsets = (1 if ni > 1 else 0, ni if nj > 1 else 0, ni * nj if nk > 1 else 0)
-        return fk, offsets, weights[0], weights[1], weights[2], inside
+        if self._image is None:
+            raise InputError("Grid.crop: this grid was built without its image's values")
+        lows, highs, shifted = [], [], []
+        for c, n in zip((ci, cj, ck), (int(v) for v in self.size)):
+            if n == 1:
+                lo = hi = 0
+            else:
+                lo = min(max(int(np.floor(c.min())), 0), n - 2)
+                hi = min(max(int(np.floor(c.max())) + 1, lo + 1), n - 1)
+            lows.append(lo)
+            highs.append(hi)
+            shifted.append(c - lo if lo else c)
+        array = sitk.GetArrayViewFromImage(self._image)
+        box = array[lows[2]:highs[2] + 1, lows[1]:highs[1] + 1, lows[0]:highs[0] + 1]
+        block = VoxelBlock(np.ascontiguousarray(box, dtype=np.float32), lows)
+        return (block, *shifted)
+
+
+class VoxelBlock:
+    """A box of an image's voxels as float32, for trilinear reads (from :meth:`Grid.crop`).
+
+    Attributes
+    ----------
+    size : (3,) int
+        Voxels along i, j, k.
+    start : (3,) int
+        Index i, j, k of its first voxel in the whole image.
+    flat : (nk * nj * ni,) float32
+        The voxels in C order.
+    """
+
+    def __init__(self, array, start):
+        self.size = np.array(array.shape[::-1], dtype=np.int64)
+        self.start = np.array(start, dtype=np.int64)
+        self.flat = array.reshape(-1)
+
+    def corners(self, ci, cj, ck, *, dtype=np.float32):
+        """:func:`corners` on this block."""
+        return corners(self.size, ci, cj, ck, dtype=dtype)
+
+
+def corners(size, ci, cj, ck, *, dtype=np.float32):
+    """Floor corner, trilinear weights and inside mask of continuous indices.
+
+    Parameters
+    ----------
+    size : (3,) int
+        Voxels along i, j, k of the grid indexed.
+    ci, cj, ck : float64 arrays of one shape
+        Continuous index along i, j, k.
+
+    Returns
+    -------
+    base : intp array, same shape
+        Flat index of the lower corner (clipped inside the grid).
+    offsets : (3,) int
+        Flat step to the upper corner along i, j, k (0 along an axis of one voxel).
+    wi, wj, wk : arrays of ``dtype`` (float32 by default), same shape
+        Weight of the upper corner along each axis.
+    inside : bool array or None
+        Index within ``[0, size - 1]`` (up to ``INDEX_TOLERANCE``) on all three axes;
+        None when every point is inside.
+    """
+    ni, nj, nk = (int(n) for n in size)
+    inside = None
+    floors, weights = [], []
+    for c, n in ((ci, ni), (cj, nj), (ck, nk)):
+        # Range checks first: the masks and clipping are only paid for when needed.
+        low, high = float(c.min()), float(c.max())
+        if low < -INDEX_TOLERANCE or high > n - 1 + INDEX_TOLERANCE:
+            ok = (c >= -INDEX_TOLERANCE) & (c <= n - 1 + INDEX_TOLERANCE)
+            inside = ok if inside is None else inside & ok
+        if low < 0.0 or high > n - 1:
+            c = np.clip(c, 0.0, n - 1)
+        # c >= 0, so truncation is floor; the top voxel uses the cell below it (weight 1).
+        f = c.astype(np.intp)
+        if high >= n - 1:
+            np.minimum(f, max(n - 2, 0), out=f)
+        w = np.empty(c.shape, dtype=dtype)
+        np.subtract(c, f, out=w, casting="same_kind")
+        floors.append(f)
+        weights.append(w)
+    fi, fj, fk = floors
+    fk *= ni * nj
+    fj *= ni
+    fk += fj
+    fk += fi
+    offsets = (1 if ni > 1 else 0, ni if nj > 1 else 0, ni * nj if nk > 1 else 0)
+    return fk, offsets, weights[0], weights[1], weights[2], inside
 
 
 def _lerp(a, b, w):

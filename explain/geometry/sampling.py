@@ -4,7 +4,8 @@ Pixel placement follows docs/architecture.md: with frame rows ``tangent, normal,
 and in-plane axes ``u = cos(r) normal + sin(r) binormal``, ``v = -sin(r) normal + cos(r)
 binormal`` (r = ``rotation_deg``), pixel ``[row, col]`` of section ``n`` lies at
 ``centre_n + (col - (W-1)/2) * pixel_mm * u + (row - (H-1)/2) * pixel_mm * v``.
-Values are trilinear in voxel-index space, vectorised over all pixels at once.
+Values are trilinear in voxel-index space, vectorised over all pixels at once, read from the
+box of voxels around each stack only (kept in the image's stored type until then).
 """
 
 from __future__ import annotations
@@ -143,8 +144,11 @@ def sample_on_grid(grid, centerline, *, points, size, pixel_mm, rotation_deg, fi
     m = grid.index_matrix
     per_section = np.stack([(centres - grid.origin) @ m.T, u @ m.T, v @ m.T], axis=2)
     index = np.matmul(per_section, basis)  # (N, 3 axes i j k, H*W)
-    base, offsets, wi, wj, wk, inside = grid.corners(index[:, 0], index[:, 1], index[:, 2])
-    values = trilinear(grid.flat, base, offsets, wi, wj, wk)
+    # Only the box of voxels this stack reads is converted to float32 (Grid.crop), with the
+    # very values and weights sampling the whole image would give.
+    block, ci, cj, ck = grid.crop(index[:, 0], index[:, 1], index[:, 2])
+    base, offsets, wi, wj, wk, inside = block.corners(ci, cj, ck)
+    values = trilinear(block.flat, base, offsets, wi, wj, wk)
     n_outside = 0
     if inside is not None:
         n_outside = int(inside.size - np.count_nonzero(inside))
@@ -176,7 +180,7 @@ def sample_cross_sections(
     Parameters
     ----------
     image : SimpleITK.Image
-        3D scalar image, HU (cast to float32).
+        3D scalar image, HU, of any pixel type (the voxels read are converted to float32).
     centerline : Centerline
         In the image's physical space, mm.
     points : int

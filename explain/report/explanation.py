@@ -403,7 +403,7 @@ def _methods_to_run(model, x, methods, named, sections, case, *, gradcam_layer, 
 
 def explain_case(model, case, *, methods=None, target="auto", points=None, size=None,
                  pixel_mm=None, baseline_hu=0.0, seed=0, gradcam_layer=None, progress=None,
-                 quality=True):
+                 quality=True, memory_budget_gb=None):
     """Explain one case with a wrapped model.
 
     Parameters
@@ -437,6 +437,11 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     quality : bool or dict
         Assess the explanation (:func:`explain.quality.assess`: localisation, mass shares,
         flags, faithfulness curves); a dict gives its settings. False skips it.
+    memory_budget_gb : float, optional
+        Working memory the model passes may take, GB; None means
+        :data:`~explain.attribution.budget.DEFAULT_MEMORY_BUDGET_GB` (1.0). It sets how many
+        Integrated Gradients steps, occlusion windows and Shapley coalitions go through the
+        model per call (:func:`~explain.attribution.budget.batches_for_budget`).
 
     Returns
     -------
@@ -445,6 +450,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     import torch
 
     from ..attribution import trace_segments
+    from ..attribution.budget import DEFAULT_MEMORY_BUDGET_GB, batches_for_budget, check_budget
     from ..geometry import sample_case
     from ..model.targets import resolve_target, target_note
     from .saliency import saliency_maps
@@ -453,6 +459,8 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     quality_settings = quality_option(quality)
     notes = []  # this run's notes; the case's and the model's (read at the end) come first
     sampling, model = _sampling(model, points, size, pixel_mm, notes)
+    memory_budget_gb = check_budget(DEFAULT_MEMORY_BUDGET_GB if memory_budget_gb is None
+                                    else memory_budget_gb, field="memory_budget_gb")
 
     _say(progress, f"sampling cross-sections of {len(case.segments)} segments "
                    f"({sampling['points']} x {sampling['size']}x{sampling['size']} px at "
@@ -473,19 +481,22 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         model, x, methods, named, sections, case, gradcam_layer=gradcam_layer, seed=int(seed),
         notes=notes)
 
+    batches = batches_for_budget(model, x, memory_budget_gb=memory_budget_gb)
     _say(progress, "tracing segments (winning channels, leave-one-out, Shapley)")
-    trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed))
+    trace = trace_segments(model, x, target=resolved, baseline_hu=baseline_hu, seed=int(seed),
+                           internal_batch_size=batches.head)
 
     notes.extend(_trace_notes(trace, sections.segment_ids))
     warnings = []
     maps = saliency_maps(model, x, methods, resolved, method_options, baseline_hu=baseline_hu,
-                         seed=int(seed), progress=progress, notes=notes, warnings=warnings)
+                         seed=int(seed), progress=progress, notes=notes, warnings=warnings,
+                         batches=batches)
 
     _say(progress, "locating peaks along each segment")
     segments = _segment_results(case, sections, trace, maps)
     label = resolved.label
     settings = _settings(methods, target, label, sampling, baseline_hu, seed, method_options,
-                         trace, skipped)
+                         trace, skipped, memory_budget_gb, batches)
     explanation = Explanation(
         case=case, sections=sections,
         model={"name": getattr(model, "name", None),
@@ -510,7 +521,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
 
 
 def _settings(methods, target, label, sampling, baseline_hu, seed, method_options, trace,
-              skipped):
+              skipped, memory_budget_gb, batches):
     """Every option and rule the explanation used, for the report's settings."""
     from ..attribution.trace import TIE_RTOL
 
@@ -524,6 +535,9 @@ def _settings(methods, target, label, sampling, baseline_hu, seed, method_option
         "culprit_rule": f"largest Shapley value over segments; values within {TIE_RTOL:g} x "
                         "|v(all) - v(none)| of it are a tie, named at the lowest SCCT number",
         "shapley": _shapley_kind(trace), "coalition_values": trace.value_dtype,
+        "memory_budget_gb": memory_budget_gb,
+        "batch_sizes": {k: getattr(batches, k) for k in ("integrated_gradients", "occlusion",
+                                                         "head")},
         "library_version": __version__,
     }
 

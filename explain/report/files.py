@@ -6,14 +6,16 @@ from pathlib import Path
 
 import numpy as np
 
+from ..geometry import place
 from ..io import check_output_dir, write_image, write_text
-from ..mapping import coverage, curve_lumen_label, overlay
+from ..mapping import coverage, curve_lumen_label, overlay_box
 from .figures import write_figures
 from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
 from .tables import segments_csv
 
-__all__ = ["check_out_dir", "write_into", "write_overlays", "overlay_volumes", "write_attributions"]
+__all__ = ["check_out_dir", "write_into", "write_overlays", "overlay_volume", "overlay_volumes",
+           "write_attributions"]
 
 
 def check_out_dir(out_dir, *, force=False, field="--out"):
@@ -38,28 +40,36 @@ def write_attributions(explanation, path):
     return path
 
 
-def overlay_volumes(explanation):
-    """The overlays on the CT's grid: method -> float32 map, ``"coverage"`` -> float32 splat
-    weight (0 where no cross-section reached), ``"culprit"`` -> uint8 lumen label around the
-    same smooth centerline that sampling follows."""
+def overlay_volume(explanation, key):
+    """One overlay on the CT's grid: a method's map (float32, splatted into the vessels' bounding
+    box and placed in the whole grid), ``"coverage"`` (float32 splat weight, 0 where no
+    cross-section reached) or ``"culprit"`` (uint8 lumen label around the same smooth centerline
+    that sampling follows)."""
     e = explanation
     image = e.case.image
-    volumes = {m: overlay(list(e.maps[m]), e.sections.sections, like=image) for m in e.methods}
-    volumes["coverage"] = coverage(e.sections.sections, like=image)
-    seg = e.case.segment(e.culprit.id)
-    volumes["culprit"] = curve_lumen_label(image, seg.centerline, seg.radius_mm,
-                                           label=e.culprit.id)
-    return volumes
+    if key == "coverage":
+        return coverage(e.sections.sections, like=image)
+    if key == "culprit":
+        seg = e.case.segment(e.culprit.id)
+        return curve_lumen_label(image, seg.centerline, seg.radius_mm, label=e.culprit.id)
+    return place(overlay_box(list(e.maps[key]), e.sections.sections, like=image), image)
+
+
+def overlay_volumes(explanation):
+    """Every overlay at once, keyed as :func:`overlay_volume` (the DICOM writer reuses them)."""
+    return {key: overlay_volume(explanation, key) for key in overlay_files(explanation.methods)}
 
 
 def write_overlays(explanation, folder, *, volumes=None):
-    """overlays/<method>.nii.gz (maps in the CT's geometry), overlays/coverage.nii.gz (the splat
-    weight: 0 where no cross-section reached) and overlays/culprit.nii.gz (the culprit's lumen)."""
+    """overlays/<method>.nii.gz (maps in the CT's geometry), overlays/coverage.nii.gz and
+    overlays/culprit.nii.gz. Without ``volumes``, one scan-sized volume at a time, each freed
+    before the next."""
     folder = Path(folder)
     names = overlay_files(explanation.methods)
-    volumes = overlay_volumes(explanation) if volumes is None else volumes
     for key, name in names.items():
-        write_image(volumes[key], folder / name)
+        volume = overlay_volume(explanation, key) if volumes is None else volumes[key]
+        write_image(volume, folder / name)
+        del volume
     return names
 
 
@@ -98,7 +108,9 @@ def write_into(explanation, folder, *, progress=None, dicom=True):
     """
     folder = Path(folder)
     _say(progress, "writing overlays in the CT's geometry")
-    volumes = overlay_volumes(explanation)
+    # a DICOM case keeps the volumes for its DICOM objects; otherwise one at a time
+    dicom_case = dicom and getattr(explanation.case, "dicom", None) is not None
+    volumes = overlay_volumes(explanation) if dicom_case else None
     write_overlays(explanation, folder, volumes=volumes)
     written = _dicom_objects(explanation, folder, volumes, dicom, progress)
     del volumes

@@ -79,24 +79,30 @@ def usable_methods(model, x, methods, *, named, gradcam_layer=None, notes):
     return tuple(m for m in methods if m not in skipped), found, skipped
 
 
-def _one_map(model, x, method, resolved, options, *, baseline_hu, notes, warnings):
+#: Which pass batch (explain.attribution.budget.PassBatches) each batched method uses.
+_BATCH_OF = {"integrated_gradients": "integrated_gradients", "smoothgrad": "integrated_gradients",
+             "occlusion": "occlusion"}
+
+
+def _one_map(model, x, method, resolved, options, *, baseline_hu, notes, warnings, batch=None):
     from ..attribution import attribute
     from ..attribution.integrated import completeness_finding
 
     run = {k: v for k, v in options.items() if k != "geometry_from"}
     if method == "integrated_gradients":
         result, delta = attribute(model, x, method=method, target=resolved,
-                                  baseline_hu=baseline_hu, return_convergence_delta=True, **run)
+                                  baseline_hu=baseline_hu, return_convergence_delta=True,
+                                  internal_batch_size=batch, **run)
         text, warn = completeness_finding(float(result.sum()), float(delta[0]))
         (warnings if warn else notes).append(text)
     else:
         result = attribute(model, x, method=method, target=resolved, baseline_hu=baseline_hu,
-                           **run)
+                           internal_batch_size=batch, **run)
     return result.detach().cpu().numpy()[0].astype(np.float32)
 
 
 def saliency_maps(model, x, methods, resolved, options, *, baseline_hu, seed, progress, notes,
-                  warnings=None):
+                  warnings=None, batches=None):
     """One map per method, (S, N, H, W) float32, in the order of ``methods``.
 
     An Integrated Gradients completeness gap above
@@ -119,7 +125,9 @@ def saliency_maps(model, x, methods, resolved, options, *, baseline_hu, seed, pr
         try:
             maps[method] = _one_map(model, x, method, resolved, options[method],
                                     baseline_hu=baseline_hu, notes=notes,
-                                    warnings=notes if warnings is None else warnings)
+                                    warnings=notes if warnings is None else warnings,
+                                    batch=None if batches is None or method not in _BATCH_OF
+                                    else getattr(batches, _BATCH_OF[method]))
         except (CulpritLensError, RuntimeError, ValueError, TypeError, IndexError) as exc:
             done = ", ".join(maps) or "none"
             cause = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
