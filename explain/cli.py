@@ -247,13 +247,17 @@ def _sanity_checks(args, progress):
     from .quality.sanity import check_has_parameters
     from .report.sanity_run import run_sanity
 
+    options = _explain_options(args)
+    if options.pop("memory_budget_gb") is not None:
+        raise InputError("--memory-budget-gb: the sanity checks do not take a memory budget yet; "
+                         "leave the option out")
     case = load_case(args.case)
     labels = None if args.grade_labels is None else _grade_labels(args.grade_labels)
     model = load_model(args.model, weights=args.weights, grade_labels=labels)
     check_has_parameters(model)
     return run_sanity(model, case, progress=progress, stability=not args.no_stability,
                       rotations_deg=_degrees(args.rotations), jitter_draws=args.jitter_draws,
-                      jitter_rms_mm=args.jitter_mm, **_explain_options(args))
+                      jitter_rms_mm=args.jitter_mm, **options)
 
 
 def _print_sanity(check, page):
