@@ -240,15 +240,16 @@ def _degrees(text):
                          f"0,90,180,270; got {text!r}") from None
 
 
-def _sanity_checks(args, progress):
-    """Load the case and model and run the sanity checks (nothing is written)."""
+def _sanity_checks(args, progress, *, budget_for_explain=False):
+    """Load the case and model and run the sanity checks (nothing is written). The memory
+    budget is explain's; the sanity command refuses one it would not use."""
     from .case import load_case
     from .model import load_model
     from .quality.sanity import check_has_parameters
     from .report.sanity_run import run_sanity
 
     options = _explain_options(args)
-    if options.pop("memory_budget_gb") is not None:
+    if options.pop("memory_budget_gb") is not None and not budget_for_explain:
         raise InputError("--memory-budget-gb: the sanity checks do not take a memory budget yet; "
                          "leave the option out")
     case = load_case(args.case)
@@ -290,7 +291,7 @@ def _explain_with_sanity(plain_explain):
 
         # Checks and the slow work first; files are written only when all of it is done.
         check_out_dir(args.out, force=args.force)
-        check = _sanity_checks(args, progress_printer(args.quiet))
+        check = _sanity_checks(args, progress_printer(args.quiet), budget_for_explain=True)
         status = plain_explain(args)
         _print_sanity(check, check.write(Path(args.out) / "sanity"))
         return status
