@@ -68,7 +68,8 @@ def test_report_json_fields(written_report, synthetic_explanation):
 def _check_against_the_hand_made_inputs(report):
     assert set(report) == {"format", "case_id", "case", "model", "settings", "prediction",
                            "target", "culprit", "segments", "reference", "files", "cautions",
-                           "notes"}
+                           "notes", "warnings"}
+    assert report["warnings"] == []  # the hand-made explanation has no finding to warn of
     a = math.radians(20)
     assert report["case"]["path"] == "/nowhere/case.json"
     assert report["case"]["segment_ids"] == [1, 6, 7]
@@ -105,6 +106,7 @@ def _check_against_the_hand_made_inputs(report):
         "html": "report.html", "dicom": [],
         "overlays": {"integrated_gradients": "overlays/integrated_gradients.nii.gz",
                      "occlusion": "overlays/occlusion.nii.gz",
+                     "coverage": "overlays/coverage.nii.gz",
                      "culprit": "overlays/culprit.nii.gz"}}
     # the one note: no DICOM objects for a case whose CT is no DICOM series
     assert len(report["notes"]) == 1 and report["notes"][0].startswith("no DICOM objects written")
