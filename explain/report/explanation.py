@@ -387,6 +387,23 @@ def _run_model(model, x, notes):
                              f"cross-sections {tuple(x.shape)}{hint}: {cause}") from None
 
 
+def _output_and_target(model, x, target, grade_labels, notes):
+    """The model's output on the case, the resolved target and its value (a note when the
+    target had to assume something)."""
+    import torch
+
+    from ..model.targets import resolve_target, target_note
+
+    output = _run_model(model, x, notes)
+    resolved = resolve_target(output, target, grade_labels=grade_labels)
+    _check_grade_labels(output, resolved, grade_labels, model)
+    note = target_note(output, target, resolved)
+    if note:
+        notes.append(note)
+    with torch.no_grad():
+        return output, resolved, float(resolved(output)[0])
+
+
 def _methods_to_run(model, x, methods, named, sections, case, *, gradcam_layer, seed, notes):
     """(methods, options per method, skipped method -> reason), checked before any map."""
     from .saliency import usable_methods
@@ -452,7 +469,6 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     from ..attribution import trace_segments
     from ..attribution.budget import DEFAULT_MEMORY_BUDGET_GB, batches_for_budget, check_budget
     from ..geometry import sample_case
-    from ..model.targets import resolve_target, target_note
     from .saliency import saliency_maps
 
     methods, named, baseline_hu = _check_arguments(model, methods, seed, baseline_hu)
@@ -468,14 +484,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     sections = sample_case(case, **sampling)
     x = sections.tensor()
     grade_labels = getattr(model, "grade_labels", None)
-    output = _run_model(model, x, notes)
-    resolved = resolve_target(output, target, grade_labels=grade_labels)
-    _check_grade_labels(output, resolved, grade_labels, model)
-    note = target_note(output, target, resolved)
-    if note:
-        notes.append(note)
-    with torch.no_grad():
-        target_value = float(resolved(output)[0])
+    output, resolved, target_value = _output_and_target(model, x, target, grade_labels, notes)
     # cheap checks of the methods (Grad-CAM's layer) before the expensive steps
     methods, method_options, skipped = _methods_to_run(
         model, x, methods, named, sections, case, gradcam_layer=gradcam_layer, seed=int(seed),
