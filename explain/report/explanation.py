@@ -464,8 +464,6 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     -------
     Explanation
     """
-    import torch
-
     from ..attribution import trace_segments
     from ..attribution.budget import DEFAULT_MEMORY_BUDGET_GB, batches_for_budget, check_budget
     from ..geometry import sample_case
@@ -508,10 +506,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
                          trace, skipped, memory_budget_gb, batches)
     explanation = Explanation(
         case=case, sections=sections,
-        model={"name": getattr(model, "name", None),
-               "weights_hash": getattr(model, "weights_hash", None),
-               "kind": getattr(model, "kind", None),
-               "grade_labels": None if grade_labels is None else [str(g) for g in grade_labels]},
+        model=_model_dict(model, grade_labels),
         settings=settings, prediction=_prediction(output, resolved, grade_labels),
         target={"requested": settings["target"], "label": label, "value": target_value,
                 "value_all": float(trace.value_all), "value_none": float(trace.value_empty)},
@@ -527,6 +522,14 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
     _say(progress, "assessing the explanation (localisation, mass shares, faithfulness)")
     return replace(explanation, quality=assess(explanation, case, model=model, target=resolved,
                                                **quality_settings))
+
+
+def _model_dict(model, grade_labels):
+    """report.json's ``model``: name, weights hash, how it was split, grade labels."""
+    return {"name": getattr(model, "name", None),
+            "weights_hash": getattr(model, "weights_hash", None),
+            "kind": getattr(model, "kind", None),
+            "grade_labels": None if grade_labels is None else [str(g) for g in grade_labels]}
 
 
 def _settings(methods, target, label, sampling, baseline_hu, seed, method_options, trace,
