@@ -9,7 +9,6 @@ above :data:`COMPLETENESS_SHARE` of ``|F(x) - F(baseline)|`` into a warning.
 
 from __future__ import annotations
 
-import torch
 from captum.attr import IntegratedGradients
 
 from ..errors import InputError

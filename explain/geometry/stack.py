@@ -9,7 +9,7 @@ import numpy as np
 from ..errors import InputError
 from ._grid import Grid
 from .centerline import Centerline
-from .sampling import CrossSections, check_options, sample_on_grid
+from .sampling import check_options, sample_on_grid
 
 __all__ = ["CaseSections", "sample_case"]
 

@@ -9,8 +9,6 @@ attribution has no share (None).
 
 from __future__ import annotations
 
-import numpy as np
-
 from .regions import (attribution_for, calcium_region, end_region, method_aggregate,
                       radius_per_section, rim_region, vessel_region)
 

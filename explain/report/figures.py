@@ -14,7 +14,6 @@
 from __future__ import annotations
 
 import numpy as np
-from matplotlib import colormaps
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.cm import ScalarMappable
 from matplotlib.colors import LinearSegmentedColormap, TwoSlopeNorm

@@ -13,7 +13,7 @@ import torch
 from explain.attribution import attribute, trace_segments
 from explain.attribution.gradcam import LayerNotUsable, upsample_at_centres
 from explain.attribution.occlusion import occlusion
-from explain.errors import InputError, ModelError
+from explain.errors import InputError
 from explain.model import wrap_model
 
 _h = importlib.util.spec_from_file_location("h", Path(__file__).with_name("helpers.py"))
