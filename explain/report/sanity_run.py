@@ -13,7 +13,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .. import CAUTION, __version__
-from .explanation import _check_arguments, _inside_range, _sampling, arc_steps, method_settings
+from .explanation import _check_arguments, _sampling
+from .method_options import arc_steps, inside_range, method_settings
 
 __all__ = ["SANITY_FORMAT", "SanityCheck", "run_sanity"]
 
@@ -134,7 +135,7 @@ def run_sanity(model, case, *, methods=None, target="auto", points=None, size=No
     sections = sample_case(case, **sampling)
     x = sections.tensor()
     resolved = fixed_target(model, x, target)
-    steps, range_hu = arc_steps(sections), _inside_range(methods, sections, case)
+    steps, range_hu = arc_steps(sections), inside_range(methods, sections, case)
     options = {m: method_settings(m, tuple(x.shape[2:]), seed=int(seed), arc_step_mm=steps,
                                   range_hu=range_hu) for m in methods}
     common = dict(methods=methods, target=resolved, method_options=options,
