@@ -15,7 +15,7 @@ from .jsonout import dumps, explanation_dict, overlay_files
 from .tables import segments_csv
 
 __all__ = ["check_out_dir", "write_into", "write_overlays", "overlay_volume", "overlay_volumes",
-           "write_attributions"]
+           "map_volume", "write_attributions"]
 
 
 def check_out_dir(out_dir, *, force=False, field="--out"):
@@ -52,7 +52,13 @@ def overlay_volume(explanation, key):
     if key == "culprit":
         seg = e.case.segment(e.culprit.id)
         return curve_lumen_label(image, seg.centerline, seg.radius_mm, label=e.culprit.id)
-    return place(overlay_box(list(e.maps[key]), e.sections.sections, like=image), image)
+    return map_volume(e.maps[key], e.sections.sections, image)
+
+
+def map_volume(maps, sections, image):
+    """One method's overlay: splatted into the vessels' bounding box, then placed in the CT's
+    grid (one scan-sized float32 volume)."""
+    return place(overlay_box(list(maps), sections, like=image), image)
 
 
 def overlay_volumes(explanation):

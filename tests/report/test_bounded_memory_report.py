@@ -20,7 +20,6 @@ import SimpleITK as sitk
 
 from explain.case import load_case
 from explain.geometry._grid import Grid, VoxelBlock
-from explain.io import write_image
 from explain.model import load_model
 from explain.report import explain_case
 from explain.report import files as report_files
@@ -35,12 +34,11 @@ def _whole_grid_crop(self, ci, cj, ck):
     return VoxelBlock(full, (0, 0, 0)), ci, cj, ck
 
 
-def _whole_image_overlay(maps, sections, image, path):
+def _whole_image_volume(maps, sections, image):
     mean, _ = whole_image_splat([np.asarray(m, dtype=np.float32) for m in maps], sections, image)
     volume = sitk.GetImageFromArray(mean)
     volume.CopyInformation(image)
-    write_image(volume, path)
-    return path
+    return volume
 
 
 def _same_outputs(a, b):
@@ -70,7 +68,7 @@ def test_demo_outputs_equal_the_whole_image_path(demo_case, tmp_path, monkeypatc
 
     old_case = dataclasses.replace(case, image=sitk.Cast(case.image, sitk.sitkFloat32))
     monkeypatch.setattr(Grid, "crop", _whole_grid_crop)
-    monkeypatch.setattr(report_files, "write_overlay", _whole_image_overlay)
+    monkeypatch.setattr(report_files, "map_volume", _whole_image_volume)
     explain_case(model, old_case, seed=0).write(tmp_path / "whole")
     _same_outputs(tmp_path / "bounded", tmp_path / "whole")
     settings = json.loads((tmp_path / "bounded" / "report.json").read_text())["settings"]
