@@ -305,13 +305,14 @@ RECIPES = {
     "count-and-lesion": lambda k: ["phantom", "--out", k.out, "--lesion", "6:50", "--count", "2"],
     "count-small": lambda k: ["phantom", "--out", k.out, "--count", "0"],
     # audit
-    "cohort-missing": lambda k: k.cohort("")[:2] + [str(k.root / "none.csv")] + k.cohort("")[3:],
+    "cohort-missing": lambda k: ["audit", "--cohort", str(k.root / "none.csv"), "--model",
+                                 "builtin:reference", "--out", k.out, "--workers", "0"],
     "cohort-no-case-column": lambda k: k.cohort("path\ncase.json\n"),
     "cohort-no-rows": lambda k: k.cohort("case\n"),
     "cohort-empty-cell": lambda k: (k.case(), k.cohort("case,note\n,x\n"))[1],
     "cohort-duplicate": _duplicate_ids,
     "audit-other-settings": _audit_twice,
-    "audit-not-audit": lambda k: k.cohort("case\ncase.json\n") if _not_empty(k) else None,
+    "audit-not-audit": lambda k: (_not_empty(k), k.cohort("case\ncase.json\n"))[1],
     "workers-negative": lambda k: (k.case(), k.cohort("case\ncase.json\n")[:-3]
                                    + ["--workers", "-1"])[1],
 }
