@@ -117,12 +117,13 @@ def relevance_rank_accuracy(attribution: np.ndarray, mask: np.ndarray) -> Score:
     return Score(hits / k)
 
 
-def pointing_game(attribution: np.ndarray, mask: np.ndarray, *, tolerance: float = 0) -> Score:
-    """Is the largest element in the mask, or within ``tolerance`` elements of it?
+def pointing_game(attribution: np.ndarray, mask: np.ndarray, *, tolerance_mm: float = 0,
+                  spacing_mm=1.0) -> Score:
+    """Is the largest element in the mask, or within ``tolerance_mm`` of it?
 
     Zhang et al. 2018 ("Top-down neural attention by excitation backprop"). Distance is
-    Euclidean in element steps. On a tie for the largest value, it is a hit when any of the tied
-    elements is.
+    Euclidean in mm, with ``spacing_mm`` the size of one element step along each axis. On a tie
+    for the largest value, it is a hit when any of the tied elements is.
 
     Parameters
     ----------
@@ -130,8 +131,11 @@ def pointing_game(attribution: np.ndarray, mask: np.ndarray, *, tolerance: float
         Attribution map, any shape.
     mask : numpy.ndarray
         Boolean mask of the same shape.
-    tolerance : float
-        Allowed distance from the mask, in elements; must be >= 0.
+    tolerance_mm : float
+        Allowed distance from the mask, mm; must be >= 0.
+    spacing_mm : float or sequence of float
+        Element spacing, mm: one value for every axis or one per axis (array order), each > 0.
+        The default of 1 mm makes the tolerance a count of element steps.
 
     Returns
     -------
@@ -140,18 +144,23 @@ def pointing_game(attribution: np.ndarray, mask: np.ndarray, *, tolerance: float
 
     Examples
     --------
-    >>> float(pointing_game(np.array([0.0, 0.0, 2.0]), np.array([1, 0, 0]), tolerance=2))
+    >>> float(pointing_game(np.array([0.0, 0.0, 2.0]), np.array([1, 0, 0]), tolerance_mm=1,
+    ...                     spacing_mm=0.5))
     1.0
     """
     a, m = _check(attribution, mask)
-    if not (tolerance >= 0):
-        raise InputError(f"tolerance must be >= 0, got {tolerance}; pass a distance in elements")
+    if not (tolerance_mm >= 0):
+        raise InputError(f"tolerance_mm must be >= 0, got {tolerance_mm}; pass a distance in mm")
+    spacing = np.asarray(spacing_mm, dtype=float).ravel()
+    if spacing.size not in (1, a.ndim) or not np.all(spacing > 0):
+        raise InputError(f"spacing_mm must be one value > 0 or one per axis ({a.ndim}), "
+                         f"got {spacing_mm!r}; pass the element spacing in mm")
     if not m.any():
         return Score(math.nan, "empty mask")
     if not np.any(a > 0):
         return Score(math.nan, "no positive attribution")
     peaks = a == a.max()
-    if tolerance == 0:
+    if tolerance_mm == 0:
         return Score(float(np.any(peaks & m)))
-    distance = ndimage.distance_transform_edt(~m)
-    return Score(float(np.any(distance[peaks] <= tolerance)))
+    distance = ndimage.distance_transform_edt(~m, sampling=tuple(np.broadcast_to(spacing, (a.ndim,))))
+    return Score(float(np.any(distance[peaks] <= tolerance_mm)))

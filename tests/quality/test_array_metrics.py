@@ -74,15 +74,25 @@ def test_rank_ties_are_shared_by_hand():
     assert got.value == pytest.approx(2 / 3)
 
 
-def test_pointing_tolerance_in_elements_by_hand():
+def test_pointing_tolerance_in_mm_by_hand():
+    # worked by hand: a 3-4-5 triangle, 5 element steps at 1 mm, 2.5 mm at 0.5 mm
     a = np.zeros((5, 5))
     a[0, 0] = 1.0
     m = np.zeros((5, 5), bool)
-    m[3, 4] = True  # distance 5 elements (3-4-5 triangle)
-    assert pointing_game(a, m, tolerance=4.9).value == 0.0
-    assert pointing_game(a, m, tolerance=5).value == 1.0
-    with pytest.raises(InputError, match="tolerance"):
-        pointing_game(a, m, tolerance=-1)
+    m[3, 4] = True
+    assert pointing_game(a, m, tolerance_mm=4.9).value == 0.0
+    assert pointing_game(a, m, tolerance_mm=5).value == 1.0
+    assert pointing_game(a, m, tolerance_mm=2.4, spacing_mm=0.5).value == 0.0
+    assert pointing_game(a, m, tolerance_mm=2.5, spacing_mm=0.5).value == 1.0
+    # anisotropic: rows 2 mm, columns 0.75 mm -> sqrt(6^2 + 3^2) = 6.708 mm
+    assert pointing_game(a, m, tolerance_mm=6.70, spacing_mm=(2.0, 0.75)).value == 0.0
+    assert pointing_game(a, m, tolerance_mm=6.71, spacing_mm=(2.0, 0.75)).value == 1.0
+    with pytest.raises(InputError, match="tolerance_mm"):
+        pointing_game(a, m, tolerance_mm=-1)
+    with pytest.raises(InputError, match="spacing_mm"):
+        pointing_game(a, m, tolerance_mm=1, spacing_mm=(1.0, 1.0, 1.0))
+    with pytest.raises(InputError, match="spacing_mm"):
+        pointing_game(a, m, tolerance_mm=1, spacing_mm=0)
 
 
 def test_shape_mismatch_is_input_error():
