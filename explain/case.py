@@ -46,7 +46,11 @@ class Lesion:
 
 @dataclass(frozen=True)
 class Reference:
-    """What is known about a case: its grade, stenoses, lesion extents and mask."""
+    """What is known about a case: its grade, stenoses, lesion extents and mask.
+
+    ``lesion_mask`` holds only the bounding box of the mask's labelled voxels, placed in the
+    CT's physical space (its origin is that of the box's first voxel).
+    """
 
     grade: str | None
     stenosis_percent: dict
@@ -297,7 +301,24 @@ def _load_reference(path, data, image, segments):
             raise InputError(f"{where}.lesion_mask: {mask_path} has another geometry than the "
                              "image (size, origin, spacing or direction differ); resample it "
                              "onto the CT grid")
+        mask = _labelled_box(mask)
     return Reference(grade, stenosis, tuple(lesions), mask)
+
+
+def _labelled_box(mask):
+    """The mask cropped to the bounding box of its labelled (> 0) voxels, in the same physical
+    space (SimpleITK ``RegionOfInterest`` keeps the geometry; an empty mask keeps one voxel).
+    A full-size scan's mask is a scan-sized uint8 volume; the box is what the checks read."""
+    labels = sitk.GetArrayViewFromImage(mask) > 0  # [k, j, i]
+    if not labels.any():
+        return sitk.RegionOfInterest(mask, [1, 1, 1], [0, 0, 0])
+    lower, upper = [], []
+    for axis in range(3):  # k, j, i
+        hit = np.flatnonzero(labels.any(axis=tuple(a for a in range(3) if a != axis)))
+        lower.append(int(hit[0]))
+        upper.append(int(hit[-1]) + 1)
+    start, stop = lower[::-1], upper[::-1]  # i, j, k
+    return sitk.RegionOfInterest(mask, [b - a for a, b in zip(start, stop)], start)
 
 
 def load_case(path, *, ramus_territory="LCx", outside_tolerance_mm=2.0):

@@ -467,12 +467,12 @@ def coverage(sections, *, like):
         float32, the summed trilinear weight of every pixel that reached a voxel; 0 where no
         cross-section reached, so an overlay's 0 there means "not sampled", not "no attribution".
     """
-    from .geometry import splat
+    from .geometry import place, splat_box
 
     sections = list(sections)
     ones = [np.ones(cs.shape, dtype=np.float32) for cs in sections]
-    _, weight = splat(ones, sections, like=like, return_weight=True)
-    return sitk.Cast(weight, sitk.sitkFloat32)
+    # the weight alone, placed from the vessels' box: one scan-sized float32 volume
+    return place(splat_box(ones, sections, like=like), like, weight=True)
 
 
 def curve_lumen_label(like, centerline, radius_mm=None, *, label=1):

@@ -64,7 +64,8 @@ def test_good_case_loads(case_dir):
     assert seg6.radius_mm is not None and case.segment(1).radius_mm is None
     assert case.reference.grade == "3" and case.reference.stenosis_percent == {6: 60.0}
     assert case.reference.lesions[0].centre_mm == pytest.approx(7.0)
-    assert case.reference.lesion_mask.GetSize() == (40, 40, 40)
+    # an empty mask is kept as one voxel (the loader keeps the box of the labelled voxels)
+    assert case.reference.lesion_mask.GetSize() == (1, 1, 1)
     assert load_case(case_dir).case_id == "phantom-a"  # the folder works too
     assert "segments=[1, 6]" in repr(case)
 
@@ -194,6 +195,23 @@ def test_centerline_just_outside_is_counted(case_dir):
     case = load_case(case_dir)
     assert case.segment(1).n_outside == 1
     assert any("outside the image" in note for note in case.notes)
+
+
+def test_lesion_mask_is_kept_as_the_box_of_its_labels(case_dir):
+    image = sitk.ReadImage(str(case_dir / "image.nii.gz"))
+    arr = np.zeros(sitk.GetArrayViewFromImage(image).shape, dtype=np.uint8)
+    arr[5:9, 10:12, 20:27] = 2   # [k, j, i]
+    arr[7, 15, 22] = 1
+    mask = sitk.GetImageFromArray(arr)
+    mask.CopyInformation(image)
+    sitk.WriteImage(mask, str(case_dir / "mask.nii.gz"))
+    box = load_case(case_dir).reference.lesion_mask
+    assert box.GetSize() == (7, 6, 4)
+    # SimpleITK RegionOfInterest as the reference: same voxels at the same physical place
+    expected = sitk.RegionOfInterest(mask, [7, 6, 4], [20, 10, 5])
+    np.testing.assert_array_equal(sitk.GetArrayFromImage(box), sitk.GetArrayFromImage(expected))
+    assert box.GetOrigin() == pytest.approx(image.TransformIndexToPhysicalPoint((20, 10, 5)))
+    assert box.GetSpacing() == image.GetSpacing() and box.GetDirection() == image.GetDirection()
 
 
 def test_lesion_mask_other_geometry(case_dir):

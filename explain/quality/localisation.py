@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import numpy as np
 import SimpleITK as sitk
-from scipy import ndimage
 
 from .array_metrics import relevance_mass_accuracy, relevance_rank_accuracy
 from .regions import (attribution_for, lesion_arc_region, mask_region, method_aggregate,
@@ -37,15 +36,27 @@ def reference_culprits(reference, segment_ids):
     return tuple(sorted(k for k, v in stenosis.items() if v == top))
 
 
-def _mask_distance_mm(mask):
-    """Distance (mm) of every voxel ``[k, j, i]`` to the nearest mask voxel, with the CT spacing."""
-    labels = sitk.GetArrayViewFromImage(mask) > 0
-    if not labels.any():
+def _mask_voxels_mm(mask, image):
+    """The mask's voxels as ``(n, 3)`` float64 positions in mm on the CT's index grid
+    (``[k, j, i]`` of ``image`` scaled by the CT spacing), or None for an empty mask.
+
+    ``mask`` may be the whole grid or a box of it (:attr:`explain.case.Reference.lesion_mask`);
+    only the mask's own voxels are kept: no scan-sized distance map is built."""
+    inside = np.argwhere(sitk.GetArrayViewFromImage(mask) > 0)
+    if not len(inside):
         return None
-    return ndimage.distance_transform_edt(~labels, sampling=mask.GetSpacing()[::-1])
+    start = image.TransformPhysicalPointToIndex(mask.GetOrigin())  # i, j, k of the box
+    return (inside + np.asarray(start[::-1])) * np.asarray(image.GetSpacing()[::-1], np.float64)
 
 
-def _pointing(location, lesions, distance, tolerance_mm):
+def _mask_distance_mm(mask_mm, voxel, spacing):
+    """Distance (mm) of voxel ``(i, j, k)`` to the nearest mask voxel (0 inside the mask): the
+    Euclidean distance transform of the mask's complement at that voxel, with the CT spacing."""
+    here = np.asarray(voxel[::-1], dtype=np.float64) * np.asarray(spacing[::-1], dtype=np.float64)
+    return float(np.sqrt(((mask_mm - here) ** 2).sum(axis=1).min()))
+
+
+def _pointing(location, lesions, mask, tolerance_mm):
     """(arc test, mask test, peak error mm) of one method's culprit peak."""
     peak = location.peak
     if peak is None or not lesions:
@@ -53,9 +64,9 @@ def _pointing(location, lesions, distance, tolerance_mm):
     gap = min(max(les.start_mm - peak.arc_mm, peak.arc_mm - les.end_mm, 0.0) for les in lesions)
     error = min(abs(peak.arc_mm - les.centre_mm) for les in lesions)
     by_mask = None
-    if distance is not None and peak.inside_image:
-        i, j, k = peak.voxel
-        by_mask = bool(distance[k, j, i] <= tolerance_mm)
+    if mask is not None and peak.inside_image:
+        mask_mm, spacing = mask
+        by_mask = bool(_mask_distance_mm(mask_mm, peak.voxel, spacing) <= tolerance_mm)
     return bool(gap <= tolerance_mm), by_mask, float(error)
 
 
@@ -117,7 +128,10 @@ def localisation(explanation, case, *, tolerance_mm=3.0):
     e = explanation
     culprits = reference_culprits(reference, e.sections.segment_ids)
     lesions = [les for les in reference.lesions if les.segment == e.culprit.id]
-    distance = None if reference.lesion_mask is None else _mask_distance_mm(reference.lesion_mask)
+    mask = None
+    if reference.lesion_mask is not None:
+        mask_mm = _mask_voxels_mm(reference.lesion_mask, case.image)
+        mask = None if mask_mm is None else (mask_mm, case.image.GetSpacing())
     regions, region_kind, radius_from = _lesion_regions(e, case, reference)
     region = np.stack(regions)
     out = {"culprit_hit": (e.culprit.id in culprits) if culprits else None,
@@ -127,7 +141,7 @@ def localisation(explanation, case, *, tolerance_mm=3.0):
            "pointing_hit": {}, "pointing_hit_mask": {}, "peak_error_mm": {},
            "relevance_mass": {}, "relevance_rank": {}, "reasons": {}}
     for m in e.methods:
-        hit, by_mask, error = _pointing(e.culprit.locations[m], lesions, distance, tolerance_mm)
+        hit, by_mask, error = _pointing(e.culprit.locations[m], lesions, mask, tolerance_mm)
         out["pointing_hit"][m], out["pointing_hit_mask"][m] = hit, by_mask
         out["peak_error_mm"][m] = error
         a = attribution_for(e.maps[m], method_aggregate(e, m))

@@ -9,13 +9,14 @@ in test_array_metrics.py; here the lesion region they are given is checked by di
 import dataclasses
 
 import numpy as np
+from scipy import ndimage
 import pytest
 import SimpleITK as sitk
 
 from explain.case import Lesion
 from explain.errors import InputError
 from explain.quality import localisation, relevance_mass_accuracy
-from explain.quality.localisation import _mask_distance_mm
+from explain.quality.localisation import _mask_distance_mm, _mask_voxels_mm
 
 
 def _with_reference(case, **changes):
@@ -71,15 +72,27 @@ def _mask_case(case, box):
 
 def test_mask_distance_matches_a_brute_force_in_mm(case):
     masked, arr = _mask_case(case, ((20, 23), (30, 33), (30, 34)))
-    distance = _mask_distance_mm(masked.reference.lesion_mask)
+    mask = masked.reference.lesion_mask
     image = case.image
+    mask_mm = _mask_voxels_mm(mask, image)
+    # the box the case loader keeps (explain.case._labelled_box) gives the same voxels
+    box = sitk.RegionOfInterest(mask, [4, 3, 3], [30, 30, 20])
+    np.testing.assert_array_equal(_mask_voxels_mm(box, image), mask_mm)
     inside = np.argwhere(arr > 0)                                     # [k, j, i]
     pts = np.array([image.TransformIndexToPhysicalPoint((int(i), int(j), int(k)))
                     for k, j, i in inside])
-    for voxel in [(10, 5, 3), (31, 31, 21), (40, 50, 30)]:
+    # scipy.ndimage.distance_transform_edt with the CT spacing, the reference transform
+    edt = ndimage.distance_transform_edt(arr == 0, sampling=image.GetSpacing()[::-1])
+    for voxel in [(10, 5, 3), (31, 31, 21), (40, 50, 30), (32, 31, 21)]:
         i, j, k = voxel
         p = np.array(image.TransformIndexToPhysicalPoint(voxel))
-        assert distance[k, j, i] == pytest.approx(np.linalg.norm(pts - p, axis=1).min())
+        got = _mask_distance_mm(mask_mm, voxel, mask.GetSpacing())
+        # brute force over SimpleITK's physical points of the mask voxels
+        assert got == pytest.approx(np.linalg.norm(pts - p, axis=1).min())
+        assert got == pytest.approx(edt[k, j, i], abs=1e-12)
+    assert _mask_distance_mm(mask_mm, (31, 31, 21), mask.GetSpacing()) == 0.0  # inside
+    empty = sitk.Image(mask.GetSize(), sitk.sitkUInt8)
+    assert _mask_voxels_mm(empty, image) is None
 
 
 def test_mask_pointing_and_mass_use_the_mask(case, explanation):
