@@ -467,12 +467,24 @@ def coverage(sections, *, like):
         float32, the summed trilinear weight of every pixel that reached a voxel; 0 where no
         cross-section reached, so an overlay's 0 there means "not sampled", not "no attribution".
     """
-    from .geometry import place, splat_box
+    from .geometry import place
+
+    # the weight alone, placed from the vessels' box: one scan-sized float32 volume
+    return place(coverage_box(sections, like=like), like, weight=True)
+
+
+def coverage_box(sections, *, like):
+    """:func:`coverage` held in the vessels' bounding box (its ``weight``), not the scan.
+
+    Returns
+    -------
+    explain.geometry.SplatBox
+    """
+    from .geometry import splat_box
 
     sections = list(sections)
-    ones = [np.ones(cs.shape, dtype=np.float32) for cs in sections]
-    # the weight alone, placed from the vessels' box: one scan-sized float32 volume
-    return place(splat_box(ones, sections, like=like), like, weight=True)
+    return splat_box([np.ones(cs.shape, dtype=np.float32) for cs in sections], sections,
+                     like=like)
 
 
 def curve_lumen_label(like, centerline, radius_mm=None, *, label=1):

@@ -8,14 +8,15 @@ import numpy as np
 
 from ..geometry import place
 from ..io import check_output_dir, write_image, write_text
-from ..mapping import coverage, curve_lumen_label, overlay_box
+from ..mapping import coverage, coverage_box, curve_lumen_label, overlay_box
 from .figures import write_figures
 from .html import report_html
 from .jsonout import dumps, explanation_dict, overlay_files
+from .nifti_stream import write_placed_nifti
 from .tables import segments_csv
 
 __all__ = ["check_out_dir", "write_into", "write_overlays", "overlay_volume", "overlay_volumes",
-           "map_volume", "write_attributions"]
+           "map_box", "map_volume", "write_attributions"]
 
 
 def check_out_dir(out_dir, *, force=False, field="--out"):
@@ -55,10 +56,15 @@ def overlay_volume(explanation, key):
     return map_volume(e.maps[key], e.sections.sections, image)
 
 
+def map_box(maps, sections, image):
+    """One method's overlay splatted into the vessels' bounding box (a SplatBox)."""
+    return overlay_box(list(maps), sections, like=image)
+
+
 def map_volume(maps, sections, image):
-    """One method's overlay: splatted into the vessels' bounding box, then placed in the CT's
-    grid (one scan-sized float32 volume)."""
-    return place(overlay_box(list(maps), sections, like=image), image)
+    """One method's overlay: :func:`map_box` placed in the CT's grid (one scan-sized float32
+    volume)."""
+    return place(map_box(maps, sections, image), image)
 
 
 def overlay_volumes(explanation):
@@ -66,16 +72,32 @@ def overlay_volumes(explanation):
     return {key: overlay_volume(explanation, key) for key in overlay_files(explanation.methods)}
 
 
+def _write_overlay(explanation, key, path):
+    """One overlay file without a scan-sized volume: a method's map or the coverage streamed
+    from the vessels' box (:func:`explain.report.nifti_stream.write_placed_nifti`); the culprit
+    label (uint8) as a volume."""
+    e = explanation
+    image = e.case.image
+    if key == "culprit":
+        return write_image(overlay_volume(e, key), path)
+    if key == "coverage":
+        box = coverage_box(e.sections.sections, like=image)
+        return write_placed_nifti(box.weight, box.start, image, path)
+    box = map_box(e.maps[key], e.sections.sections, image)
+    return write_placed_nifti(box.mean, box.start, image, path)
+
+
 def write_overlays(explanation, folder, *, volumes=None):
     """overlays/<method>.nii.gz (maps in the CT's geometry), overlays/coverage.nii.gz and
-    overlays/culprit.nii.gz. Without ``volumes``, one scan-sized volume at a time, each freed
-    before the next."""
+    overlays/culprit.nii.gz. Without ``volumes``, streamed from the vessels' bounding box one
+    file at a time (no scan-sized float32 volume is built)."""
     folder = Path(folder)
     names = overlay_files(explanation.methods)
     for key, name in names.items():
-        volume = overlay_volume(explanation, key) if volumes is None else volumes[key]
-        write_image(volume, folder / name)
-        del volume
+        if volumes is None:
+            _write_overlay(explanation, key, folder / name)
+        else:
+            write_image(volumes[key], folder / name)
     return names
 
 

@@ -20,6 +20,7 @@ import SimpleITK as sitk
 
 from explain.case import load_case
 from explain.geometry._grid import Grid, VoxelBlock
+from explain.geometry.splat import SplatBox
 from explain.model import load_model
 from explain.report import explain_case
 from explain.report import files as report_files
@@ -34,11 +35,12 @@ def _whole_grid_crop(self, ci, cj, ck):
     return VoxelBlock(full, (0, 0, 0)), ci, cj, ck
 
 
-def _whole_image_volume(maps, sections, image):
-    mean, _ = whole_image_splat([np.asarray(m, dtype=np.float32) for m in maps], sections, image)
-    volume = sitk.GetImageFromArray(mean)
-    volume.CopyInformation(image)
-    return volume
+def _whole_image_box(maps, sections, image):
+    """The whole image as one box: the old single bincount over every voxel."""
+    mean, weight = whole_image_splat([np.asarray(m, dtype=np.float32) for m in maps], sections,
+                                     image)
+    return SplatBox((0, 0, 0), np.asarray(mean, dtype=np.float32), weight,
+                    tuple(image.GetSize()))
 
 
 def _same_outputs(a, b):
@@ -68,7 +70,7 @@ def test_demo_outputs_equal_the_whole_image_path(demo_case, tmp_path, monkeypatc
 
     old_case = dataclasses.replace(case, image=sitk.Cast(case.image, sitk.sitkFloat32))
     monkeypatch.setattr(Grid, "crop", _whole_grid_crop)
-    monkeypatch.setattr(report_files, "map_volume", _whole_image_volume)
+    monkeypatch.setattr(report_files, "map_box", _whole_image_box)
     explain_case(model, old_case, seed=0).write(tmp_path / "whole")
     _same_outputs(tmp_path / "bounded", tmp_path / "whole")
     settings = json.loads((tmp_path / "bounded" / "report.json").read_text())["settings"]
