@@ -45,7 +45,7 @@ case "$group" in
     deselect=', "--deselect", "tests/attribution/test_trace.py::test_exact_shapley_equals_brute_force_over_permutations[7]"' ;;
   attribution-maps)    # the saliency methods, without trace.py
     only='"explain/attribution/[!t]*.py"'
-    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/model/test_wrap.py"' ;;
+    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/attribution/test_budget.py", "tests/attribution/test_gradcam_geometry.py", "tests/attribution/test_ig_completeness.py", "tests/attribution/test_occlusion_mm.py", "tests/attribution/test_smoothgrad_range.py", "tests/model/test_wrap.py"' ;;
   *) echo "unknown group '$group': use grading, mapping, geometry or attribution" >&2; exit 2 ;;
 esac
 
