@@ -51,3 +51,26 @@ def test_smoothgrad_noise_scale_is_noise_times_the_given_range():
         x.clone(), nt_type="smoothgrad", nt_samples=6, stdevs=0.1 * 500.0, target=1,
         nt_samples_batch_size=8, abs=False)
     torch.testing.assert_close(ours, ref, rtol=1e-5, atol=1e-6)
+
+
+def test_range_of_all_pixels_when_none_lies_inside():
+    # A centerline well beyond the image: every pixel is the -1000 HU fill, so the range is that
+    # of all pixels (numpy min/max of the values), not an empty one.
+    image = sitk.GetImageFromArray(np.zeros((8, 8, 8), dtype=np.float32))
+    cs = sample_cross_sections(image, Centerline([[40.0, 40.0, 40.0], [40.0, 40.0, 50.0]]),
+                               points=4, size=5, pixel_mm=1.0)
+    assert inside_range_hu([cs], image) == (float(cs.values.min()), float(cs.values.max()))
+
+
+def test_range_spans_every_section():
+    # Two sections, each inside the image: the range is the min and max over both (numpy).
+    ramp = np.linspace(0.0, 100.0, 16 * 16 * 16, dtype=np.float32).reshape(16, 16, 16)
+    image = sitk.GetImageFromArray(ramp)
+    a = sample_cross_sections(image, Centerline([[8.0, 8.0, 2.0], [8.0, 8.0, 5.0]]),
+                              points=3, size=3, pixel_mm=1.0)
+    b = sample_cross_sections(image, Centerline([[8.0, 8.0, 10.0], [8.0, 8.0, 13.0]]),
+                              points=3, size=3, pixel_mm=1.0)
+    want = (float(min(a.values.min(), b.values.min())), float(max(a.values.max(), b.values.max())))
+    assert inside_range_hu([a, b], image) == want
+    assert inside_range_hu([b, a], image) == want
+    assert want[0] < float(b.values.min()) and want[1] > float(a.values.max())
