@@ -107,6 +107,13 @@ def test_case_resampler_uses_the_geometry_sampler():
     assert x0.shape == (1, 2, 3, 7, 7) and x0.dtype == torch.float32
     back, valid = rotate_back(x1.numpy(), 60.0)
     np.testing.assert_allclose(back[..., valid], x0.numpy()[..., valid], atol=2e-3)
+    # pixels beyond the image take the fill value asked for (the sampler's own -1000 HU
+    # default would hide a fill that is not passed on)
+    far = SimpleNamespace(image=case.image, segments=(SimpleNamespace(
+        id=1, centerline=Centerline(np.array([[0.0, 15.0, 8.0], [0.0, 15.0, 20.0]]))),))
+    x_far = case_resampler(far, CrossSectionSpec(points=3, size=7, pixel_mm=1.0),
+                           fill_value=-321.0)(0.0)
+    assert (x_far == -321.0).any() and not (x_far == -1000.0).any()
 
 
 def _random_maps(k, shape=(1, 2, 3, 7, 7), seed=11):
