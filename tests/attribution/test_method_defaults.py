@@ -122,3 +122,22 @@ def test_occlusion_default_batch_is_16_windows():
               window=(1, 2, 2))
     # 8 x 4 x 4 = 128 windows of one segment, 16 per encoder call (one segment each)
     assert max(seen) == 16
+
+
+def test_integrated_gradients_called_directly_starts_from_0_hu_and_allows_one_step():
+    # captum IntegratedGradients, baseline 0 HU; one Gauss-Legendre node is the midpoint rule
+    from explain.attribution._common import fixed_target
+    from explain.attribution.integrated import integrated_gradients
+
+    net = h.tm.SmallConv()
+    wrapped = wrap_model(net)
+    x = h.patient(s=2, n=2, h=4, w=4, seed=6)
+    tgt = fixed_target(wrapped, x, 2)
+    for steps in (50, 1):
+        ours = integrated_gradients(wrapped, x, tgt) if steps == 50 else \
+            integrated_gradients(wrapped, x, tgt, steps=1)
+        ref = IntegratedGradients(net).attribute(x.clone(), baselines=0.0, target=2, n_steps=steps,
+                                                 method="gausslegendre")
+        torch.testing.assert_close(ours, ref, rtol=1e-4, atol=1e-6)
+    with pytest.raises(InputError, match="integrated_gradients steps: expected a positive integer"):
+        integrated_gradients(wrapped, x, tgt, steps=0)
