@@ -100,3 +100,11 @@ def test_one_byte_short_of_two_items_fits_one(wrapped):
     assert b.occlusion == 1
     b = batches_for_budget(wrapped, x, memory_budget_gb=(2 * SEGMENT_BYTES) / 1e9)
     assert b.occlusion == 2
+
+
+def test_ig_steps_count_the_head_pass_too():
+    # one byte short of 3 steps (encoder of S segments and the head, our rule): 2 steps
+    wrapped = wrap_model(LinearHead(), name="linear-head")
+    step = 4 * S * SEGMENT_BYTES + 4 * LINEAR_HEAD_BYTES
+    b = batches_for_budget(wrapped, torch.ones(1, S, N, H, W), memory_budget_gb=(3 * step - 1) / 1e9)
+    assert b.integrated_gradients == 2

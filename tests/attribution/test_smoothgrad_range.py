@@ -11,6 +11,7 @@ import importlib.util
 from pathlib import Path
 
 import numpy as np
+import pytest
 import SimpleITK as sitk
 import torch
 from captum.attr import NoiseTunnel, Saliency
@@ -74,3 +75,32 @@ def test_range_spans_every_section():
     assert inside_range_hu([a, b], image) == want
     assert inside_range_hu([b, a], image) == want
     assert want[0] < float(b.values.min()) and want[1] > float(a.values.max())
+
+
+def _inside_by_simpleitk(image, cs):
+    return np.array([all(-1e-6 <= c <= n - 1 + 1e-6 for c, n in zip(
+        image.TransformPhysicalPointToContinuousIndex(tuple(float(v) for v in p)), image.GetSize()))
+        for p in cs.points_mm.reshape(-1, 3)])
+
+
+def test_pixels_on_the_far_edge_count_and_those_beyond_it_do_not():
+    # HU = 10 x on a 16-voxel grid: a centerline on the last plane x = 15, half-pixel spacing,
+    # so pixels lie on the edge (inside, 150 HU) and 0.5 to 3 voxels beyond it (outside).
+    ramp = np.fromfunction(lambda k, j, i: 10.0 * i, (16, 16, 16)).astype(np.float32)
+    image = sitk.GetImageFromArray(ramp)
+    cs = sample_cross_sections(image, Centerline([[15.0, 8.0, 3.0], [15.0, 8.0, 12.0]]),
+                               points=4, size=13, pixel_mm=0.5)
+    inside = _inside_by_simpleitk(image, cs)
+    values = cs.values.reshape(-1)
+    want = (float(values[inside].min()), float(values[inside].max()))
+    assert want[1] == pytest.approx(150.0) and (~inside).any()
+    assert inside_range_hu([cs], image) == want
+
+
+def test_a_uniform_inside_is_a_range_of_zero_width():
+    # every pixel inside is 40 HU, the rest is the -1000 HU fill: the range is (40, 40)
+    image = sitk.GetImageFromArray(np.full((8, 8, 8), 40.0, dtype=np.float32))
+    cs = sample_cross_sections(image, Centerline([[0.0, 4.0, 1.0], [0.0, 4.0, 6.0]]),
+                               points=3, size=5, pixel_mm=1.0)
+    assert cs.values.min() == -1000.0 and _inside_by_simpleitk(image, cs).any()
+    assert inside_range_hu([cs], image) == (40.0, 40.0)
