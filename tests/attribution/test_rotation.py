@@ -188,3 +188,10 @@ def test_missing_resampler_names_the_helper():
     with pytest.raises(InputError, match=r"^rotations: give resample=callable\(rotation_deg\) -> x, "
                        r"e\.g\. explain\.attribution\.case_resampler\(case, spec\)$"):
         rotation_average(lambda x: x, None, rotations=2)
+
+
+def test_rotation_average_repr_names_shape_angles_and_agreement():
+    maps = _random_maps(2, shape=(1, 1, 1, 5, 5))
+    res = rotation_average(lambda x: x, lambda a: maps[a], rotations=2)
+    assert repr(res) == (f"RotationAverage(shape=(1, 1, 1, 5, 5), angles_deg=(0.0, 180.0), "
+                         f"agreement={res.agreement:.3f} (mean Spearman))")
