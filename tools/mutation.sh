@@ -2,7 +2,8 @@
 # Mutation testing (mutmut 3) of one module group at a time, in a scratch copy of the tree.
 #
 #   tools/mutation.sh grading|mapping|geometry|attribution [--max-children N]
-#   (attribution-trace and attribution-maps split the attribution group in two shorter runs)
+#   (attribution-trace and attribution-maps split the attribution group in two shorter runs;
+#   attribution-methods and attribution-gradcam split attribution-maps in two again)
 #
 # Each group mutates only its own files and runs only the fast tests that exercise them, so a
 # run stays bounded on a shared machine (it runs under `nice -n 15`). The scratch copy lives in
@@ -43,10 +44,16 @@ case "$group" in
     only='"explain/attribution/trace.py"'
     tests='"tests/attribution/test_trace.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py"'
     deselect=', "--deselect", "tests/attribution/test_trace.py::test_exact_shapley_equals_brute_force_over_permutations[7]"' ;;
-  attribution-maps)    # the saliency methods, without trace.py
+  attribution-maps)    # the saliency methods, without trace.py (both groups below)
     only='"explain/attribution/[!t]*.py"'
-    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/model/test_wrap.py"' ;;
-  *) echo "unknown group '$group': use grading, mapping, geometry or attribution" >&2; exit 2 ;;
+    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/attribution/test_budget.py", "tests/attribution/test_gradcam_geometry.py", "tests/attribution/test_ig_completeness.py", "tests/attribution/test_occlusion_mm.py", "tests/attribution/test_smoothgrad_range.py", "tests/attribution/test_method_defaults.py", "tests/attribution/test_attribute_batch.py", "tests/model/test_wrap.py"' ;;
+  attribution-methods)  # attribution-maps without gradcam.py: IG, occlusion, SmoothGrad, budget...
+    only='"explain/attribution/[!tg]*.py", "explain/attribution/gradients.py"'
+    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/attribution/test_budget.py", "tests/attribution/test_gradcam_geometry.py", "tests/attribution/test_ig_completeness.py", "tests/attribution/test_occlusion_mm.py", "tests/attribution/test_smoothgrad_range.py", "tests/attribution/test_method_defaults.py", "tests/attribution/test_attribute_batch.py", "tests/model/test_wrap.py"' ;;
+  attribution-gradcam)  # gradcam.py alone (layer geometry, offsets)
+    only='"explain/attribution/gradcam.py"'
+    tests='"tests/attribution/test_methods.py", "tests/attribution/test_rotation.py", "tests/attribution/test_decisions.py", "tests/attribution/test_options.py", "tests/attribution/test_budget.py", "tests/attribution/test_gradcam_geometry.py", "tests/attribution/test_ig_completeness.py", "tests/attribution/test_occlusion_mm.py", "tests/attribution/test_smoothgrad_range.py", "tests/attribution/test_method_defaults.py", "tests/attribution/test_attribute_batch.py", "tests/model/test_wrap.py"' ;;
+  *) echo "unknown group '$group': use grading, mapping, geometry or attribution[-trace|-maps|-methods|-gradcam]" >&2; exit 2 ;;
 esac
 
 work="${MUTATION_DIR:-/tmp/culprit-lens-mutation}/$group"

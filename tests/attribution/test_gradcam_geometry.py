@@ -132,3 +132,52 @@ def test_module_geometry_wins_for_its_own_layer_and_given_values_win_over_both()
     assert resolve_geometry(w, x).source == "module"
     given = resolve_geometry(w, x, layer_stride=2.0, layer_offset=0.25)
     assert (given.source, given.stride, given.offset) == ("given", 2.0, 0.25)
+
+
+@pytest.mark.parametrize("layers, cell", [
+    # padding given by name: "same" pads d (k - 1) / 2 each side, "valid" none (torch.nn.Conv3d)
+    ((nn.Conv3d(1, 2, 3, padding="same"), nn.Conv3d(2, 2, 3, padding="valid")), (2, 3, 3)),
+    ((nn.Conv3d(1, 2, 3, padding="same", dilation=2), nn.AvgPool3d(2, stride=2)), (2, 2, 2)),
+    # a pooling without a stride steps by its kernel (torch.nn.AvgPool3d's default)
+    ((nn.Conv3d(1, 2, (1, 3, 3), padding=(0, 1, 1)), nn.AvgPool3d((1, 3, 3))), (4, 2, 2)),
+])
+def test_named_padding_and_default_stride_match_the_receptive_field(layers, cell):
+    test_derived_centres_match_the_receptive_field(layers, cell)
+
+
+class PerSection(nn.Module):
+    """2-D ``layers`` applied to each cross-section (N as batch), then a mean and a max."""
+
+    def __init__(self, *layers):
+        super().__init__()
+        self.features = nn.Sequential(*layers)
+
+    def encode_segments(self, x):
+        b, s, n = x.shape[:3]
+        z = self.features(x.reshape(b * s * n, 1, *x.shape[3:]))
+        return z.mean(dim=(2, 3)).reshape(b, s, n, -1).mean(dim=2)
+
+    def head(self, pooled):
+        return pooled.sum(dim=1, keepdim=True)
+
+    def forward(self, x):
+        return self.head(self.encode_segments(x).max(dim=1).values)
+
+
+def test_two_dimensional_layers_per_cross_section_match_the_receptive_field():
+    # the same rule on (H, W) for Conv2d/AvgPool2d run on every cross-section (Dumoulin & Visin
+    # 2016), checked against autograd's support of an interior cell
+    layers = (nn.Conv2d(1, 2, 3, padding=1), nn.Conv2d(2, 2, 5, stride=2, padding=1),
+              nn.AvgPool2d(2))
+    net = PerSection(*layers)
+    geometry = check_layer(wrap_model(net), torch.zeros(1, 2, 3, 20, 20), layer="features.2")
+    assert geometry.source == "layers" and len(geometry.stride) == 2
+    x = torch.zeros(1, 1, 20, 20, requires_grad=True)  # cells away from the edges
+    with torch.no_grad():
+        for p in net.features.parameters():
+            p.copy_(torch.ones_like(p) if p.ndim > 1 else torch.zeros_like(p))
+    net.features(x + 1.0)[0, 0, 1, 2].backward()
+    support = torch.nonzero(x.grad[0, 0])
+    expected = tuple(float(support[:, a].min() + support[:, a].max()) / 2 for a in range(2))
+    got = tuple(o + st * j for o, st, j in zip(geometry.offset, geometry.stride, (1, 2)))
+    assert got == pytest.approx(expected)

@@ -65,3 +65,22 @@ def test_settings_record_the_mm_and_each_segments_window():
     assert options["window"] == [[16, 8, 8], [3, 8, 8]]  # round(16.0), round(2.67)
     assert options["stride"] == [[8, 8, 8], [1, 8, 8]]
     assert options["arc_step_mm"] == [0.25, 1.5]
+
+
+def test_window_below_one_mm_and_one_scalar_spacing():
+    # round(0.6 / 0.2) = 3 cross-sections; a single spacing given as a number is one segment
+    windows, strides = arc_windows(0.6, 0.2, 10, pixels=2)
+    assert windows == [(round(0.6 / 0.2), 2, 2)] and strides == [(1, 2, 2)]
+
+
+@pytest.mark.parametrize("bad", [True, "4", float("nan"), float("inf"), -1.0, None])
+def test_bad_window_mm_says_what_came(bad):
+    with pytest.raises(InputError, match=r"^occlusion window_mm: expected a length > 0 in mm, got "):
+        arc_windows(bad, [1.0], 6)
+
+
+def test_stride_along_the_arc_is_half_the_window():
+    # window 7 sections -> stride 7 // 2 = 3; 1 section -> 1 (never 0)
+    windows, strides = arc_windows(7.0, [1.0, 10.0], 20, pixels=(4, 5))
+    assert windows == [(7, 4, 5), (1, 4, 5)]
+    assert strides == [(3, 4, 5), (1, 4, 5)]
