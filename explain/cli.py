@@ -124,7 +124,7 @@ def _add_explain_options(cmd):
                      help="value meaning 'absent' for occlusion, IG and the baseline segment (HU)")
     cmd.add_argument("--seed", type=int, default=0, help="seed for sampled methods (default 0)")
     cmd.add_argument("--memory-budget-gb", type=float, default=None, metavar="GB",
-                     help="working memory the model passes may take, in GB (default 1.0); sets "
+                     help="working memory the model passes may take, in GB (default 0.5); sets "
                           "how many Integrated Gradients steps, occlusion windows and Shapley "
                           "coalitions run per model call. In an audit, each worker keeps to it")
 

@@ -24,9 +24,9 @@ __all__ = ["DEFAULT_MEMORY_BUDGET_GB", "BATCH_CAPS", "PassBatches", "check_budge
            "batches_for_budget"]
 
 #: Working memory the model passes may take, GB (1e9 bytes), besides the scan itself. Our own
-#: setting (common practice, no source): a third of a typical 3 GB per-process share on a
-#: workstation that runs several explanations at once.
-DEFAULT_MEMORY_BUDGET_GB = 1.0
+#: setting (no source): with it, ``explain`` of a 512 x 512 x 400 scan peaks below 3 times the
+#: scan's float32 size (bench/memory.py; the libraries and the int16 scan take about 0.65 GB).
+DEFAULT_MEMORY_BUDGET_GB = 0.5
 
 #: Largest batch of each pass: the fixed counts used before budgets (IG steps per call,
 #: occlusion windows per encoder call, head rows per call).

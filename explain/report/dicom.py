@@ -235,6 +235,17 @@ def _check_source(explanation, case):
     return source, None
 
 
+def _built(source, build):
+    """``build()``, with highdicom's refusals of this series turned into an InputError."""
+    try:
+        return build()
+    except (AttributeError, KeyError, TypeError, ValueError) as exc:
+        raise InputError(
+            f"{source.folder}: cannot build DICOM objects on this series "
+            f"({type(exc).__name__}: {str(exc).splitlines()[0][:160]}); fix the series' "
+            "headers, or turn the DICOM output off (--no-dicom)") from None
+
+
 def write_dicom(explanation, case, out_dir, *, volumes=None):
     """Write the explanation's DICOM objects into ``out_dir/overlays/dicom/``.
 
@@ -248,7 +259,8 @@ def write_dicom(explanation, case, out_dir, *, volumes=None):
         The explanation's output folder.
     volumes : dict of str to SimpleITK.Image, optional
         The overlays already computed (method -> map, ``"culprit"`` -> lumen label), as
-        :func:`explain.report.files.overlay_volumes` gives them; computed when absent.
+        :func:`explain.report.files.overlay_volumes` gives them; computed one at a time when
+        absent, each freed once its object is saved.
 
     Returns
     -------
@@ -258,22 +270,22 @@ def write_dicom(explanation, case, out_dir, *, volumes=None):
     source, note = _check_source(explanation, case)
     if source is None:
         return DicomOutput((), (note,), 0.0)
-    if volumes is None:
-        from .files import overlay_volumes
+    if volumes is None:  # one scan-sized volume at a time, each freed once its object is saved
+        from .files import overlay_volume
 
-        volumes = overlay_volumes(explanation)
+        def volume_of(key):
+            return overlay_volume(explanation, key)
+    else:
+        volume_of = volumes.__getitem__
     out_dir, names = Path(out_dir), dicom_files(explanation.methods)
     headers = _source_headers(source)
-    try:
-        objects = [(names[m], _parametric_map(explanation, source, headers, m, volumes[m], n))
-                   for n, m in enumerate(explanation.methods, 1)]
-        seg, notes = _segmentation(explanation, source, headers, volumes["culprit"])
-    except (AttributeError, KeyError, TypeError, ValueError) as exc:
-        raise InputError(
-            f"{source.folder}: cannot build DICOM objects on this series "
-            f"({type(exc).__name__}: {str(exc).splitlines()[0][:160]}); fix the series' "
-            "headers, or turn the DICOM output off (--no-dicom)") from None
-    for name, dataset in [*objects, (names["segmentation"], seg)]:
-        _save(dataset, out_dir / name)
+    for n, m in enumerate(explanation.methods, 1):
+        dataset = _built(source, lambda: _parametric_map(explanation, source, headers, m,
+                                                         volume_of(m), n))
+        _save(dataset, out_dir / names[m])
+        del dataset
+    seg, notes = _built(source, lambda: _segmentation(explanation, source, headers,
+                                                      volume_of("culprit")))
+    _save(seg, out_dir / names["segmentation"])
     files = tuple(names[m] for m in explanation.methods) + (names["segmentation"],)
     return DicomOutput(files, tuple(notes), time.perf_counter() - start)

@@ -405,7 +405,7 @@ def explain_case(model, case, *, methods=None, target="auto", points=None, size=
         flags, faithfulness curves); a dict gives its settings. False skips it.
     memory_budget_gb : float, optional
         Working memory the model passes may take, GB; None means
-        :data:`~explain.attribution.budget.DEFAULT_MEMORY_BUDGET_GB` (1.0). It sets how many
+        :data:`~explain.attribution.budget.DEFAULT_MEMORY_BUDGET_GB` (0.5). It sets how many
         Integrated Gradients steps, occlusion windows and Shapley coalitions go through the
         model per call (:func:`~explain.attribution.budget.batches_for_budget`).
 

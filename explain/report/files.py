@@ -136,12 +136,9 @@ def write_into(explanation, folder, *, progress=None, dicom=True):
     """
     folder = Path(folder)
     _say(progress, "writing overlays in the CT's geometry")
-    # a DICOM case keeps the volumes for its DICOM objects; otherwise one at a time
-    dicom_case = dicom and getattr(explanation.case, "dicom", None) is not None
-    volumes = overlay_volumes(explanation) if dicom_case else None
-    write_overlays(explanation, folder, volumes=volumes)
-    written = _dicom_objects(explanation, folder, volumes, dicom, progress)
-    del volumes
+    write_overlays(explanation, folder)
+    # the DICOM objects place each volume again, one at a time (memory over a second splat)
+    written = _dicom_objects(explanation, folder, None, dicom, progress)
     write_attributions(explanation, folder / "attributions.npz")
     _say(progress, "drawing figures")
     figures = write_figures(explanation, folder / "figures")
