@@ -127,3 +127,15 @@ def test_bad_case_errors_name_what_was_given():
     no_id = SimpleNamespace(image=case.image, segments=(SimpleNamespace(centerline=line),))
     with pytest.raises(InputError, match=r"^case.segments\[0\].id: expected an integer, got None$"):
         sample_case(no_id, points=4, size=3, pixel_mm=1.0)
+
+
+def test_default_rotation_is_none_and_default_fill_is_air():
+    # Without options the stack equals single sampling with rotation 0 deg and fill -1000 HU
+    # written out (common practice, no source: air is -1000 HU by the Hounsfield scale's definition).
+    case = fake_case()
+    sections = sample_case(case, points=4, size=5, pixel_mm=0.9)
+    by_id = {s.id: s for s in case.segments}
+    for sid, cs in zip(sections.segment_ids, sections.sections):
+        explicit = sample_cross_sections(case.image, by_id[sid].centerline, points=4, size=5,
+                                         pixel_mm=0.9, rotation_deg=0.0, fill_value=-1000.0)
+        assert np.array_equal(cs.values, explicit.values)
