@@ -79,3 +79,49 @@ def test_every_corner_read_stays_inside_the_volume():
         for pick in itertools.product((0, 1), repeat=3):
             reach = base + sum(p * o for p, o in zip(pick, offsets))
             assert reach.min() >= 0 and reach.max() <= int(np.prod(size)) - 1
+
+
+def test_grid_corners_pass_the_weight_dtype_on():
+    import SimpleITK as sitk
+
+    from explain.geometry._grid import Grid
+
+    grid = Grid(sitk.Image(3, 4, 5, sitk.sitkFloat32))
+    c = np.array([0.5, 1.25])
+    assert grid.corners(c, c, c)[2].dtype == np.float32  # the documented default
+    weights = grid.corners(c, c, c, dtype=np.float64)[2:5]
+    assert all(w.dtype == np.float64 for w in weights)
+    assert weights[0].tolist() == [0.5, 0.25]  # hand-derived: index minus its floor
+
+
+def test_crop_without_values_says_so():
+    import SimpleITK as sitk
+
+    from explain.errors import InputError
+    from explain.geometry._grid import Grid
+
+    grid = Grid(sitk.Image(3, 4, 5, sitk.sitkFloat32), with_values=False)
+    c = np.array([1.0])
+    with pytest.raises(InputError, match=r"^Grid.crop: this grid was built without its image's values$"):
+        grid.crop(c, c, c)
+
+
+@pytest.mark.parametrize("shape", [(1, 2, 3), (2, 1, 4), (3, 4, 1), (2, 2, 2), (5, 6, 7)])
+def test_crop_reads_the_values_the_whole_image_gives(shape):
+    # Reference: scipy.ndimage.map_coordinates(order=1, mode="nearest") on the whole array;
+    # axes of one and two voxels are the crop's special cases.
+    import SimpleITK as sitk
+
+    from explain.geometry._grid import Grid
+
+    rng = np.random.default_rng(17)  # seed recorded
+    volume = rng.normal(0.0, 50.0, size=shape).astype(np.float32)
+    grid = Grid(sitk.GetImageFromArray(volume))
+    nk, nj, ni = shape
+    ci, cj, ck = (rng.uniform(-0.5, n - 0.5, 50) for n in (ni, nj, nk))
+    block, bi, bj, bk = grid.crop(ci, cj, ck)
+    base, offsets, wi, wj, wk, _ = block.corners(bi, bj, bk)
+    got = trilinear(block.flat, base, offsets, wi, wj, wk)
+    expected = ndimage.map_coordinates(volume.astype(np.float64), [ck, cj, ci], order=1, mode="nearest")
+    np.testing.assert_allclose(got, expected, rtol=1e-5, atol=1e-3)
+    assert np.all(block.start >= 0) and np.all(block.start + block.size <= grid.size)
