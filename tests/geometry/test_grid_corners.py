@@ -125,3 +125,19 @@ def test_crop_reads_the_values_the_whole_image_gives(shape):
     expected = ndimage.map_coordinates(volume.astype(np.float64), [ck, cj, ci], order=1, mode="nearest")
     np.testing.assert_allclose(got, expected, rtol=1e-5, atol=1e-3)
     assert np.all(block.start >= 0) and np.all(block.start + block.size <= grid.size)
+
+
+def test_crop_box_runs_from_the_lowest_floor_to_one_past_the_highest():
+    # Hand-derived from the documented rule (per axis: floor of the smallest index to one past
+    # the floor of the largest, kept within the image and at least two voxels long).
+    import SimpleITK as sitk
+
+    from explain.geometry._grid import Grid
+
+    grid = Grid(sitk.Image(5, 6, 7, sitk.sitkFloat32))
+    block, bi, *_ = grid.crop(np.array([1.2, 3.7]), np.array([0.0, 5.0]), np.array([-0.6, 2.5]))
+    assert block.start.tolist() == [1, 0, 0] and block.size.tolist() == [4, 6, 4]
+    assert np.array_equal(bi, np.array([1.2, 3.7]) - 1.0)  # shifted by the box start, exactly
+    # every index on the top voxel: the box is the last two voxels of each axis
+    top = grid.crop(np.array([4.0]), np.array([5.0]), np.array([6.0]))[0]
+    assert top.start.tolist() == [3, 4, 5] and top.size.tolist() == [2, 2, 2]
