@@ -102,7 +102,8 @@ def test_crop_without_values_says_so():
 
     grid = Grid(sitk.Image(3, 4, 5, sitk.sitkFloat32), with_values=False)
     c = np.array([1.0])
-    with pytest.raises(InputError, match=r"^Grid.crop: this grid was built without its image's values$"):
+    message = r"^Grid.crop: this grid was built without its image's values$"
+    with pytest.raises(InputError, match=message):
         grid.crop(c, c, c)
 
 
@@ -122,7 +123,8 @@ def test_crop_reads_the_values_the_whole_image_gives(shape):
     block, bi, bj, bk = grid.crop(ci, cj, ck)
     base, offsets, wi, wj, wk, _ = block.corners(bi, bj, bk)
     got = trilinear(block.flat, base, offsets, wi, wj, wk)
-    expected = ndimage.map_coordinates(volume.astype(np.float64), [ck, cj, ci], order=1, mode="nearest")
+    expected = ndimage.map_coordinates(volume.astype(np.float64), [ck, cj, ci], order=1,
+                                       mode="nearest")
     np.testing.assert_allclose(got, expected, rtol=1e-5, atol=1e-3)
     assert np.all(block.start >= 0) and np.all(block.start + block.size <= grid.size)
 

@@ -81,7 +81,8 @@ def test_case_sections_refuse_stacks_of_different_shape():
     line = case.segments[0].centerline
     small = sample_cross_sections(case.image, line, points=4, size=3, pixel_mm=1.0)
     large = sample_cross_sections(case.image, line, points=4, size=5, pixel_mm=1.0)
-    with pytest.raises(InputError, match=r"^CaseSections: stacks differ in shape \[\(4, 3, 3\), \(4, 5, 5\)\]$"):
+    message = r"^CaseSections: stacks differ in shape \[\(4, 3, 3\), \(4, 5, 5\)\]$"
+    with pytest.raises(InputError, match=message):
         CaseSections(segment_ids=(1, 2), sections=(small, large))
 
 
@@ -121,8 +122,10 @@ def test_bad_case_errors_name_what_was_given():
         sample_case(SimpleNamespace(image=case.image, segments=()), points=4, size=3, pixel_mm=1.0)
     line = case.segments[0].centerline
     for bad_id, shown in (("3", "'3'"), (True, "True"), (2.0, "2.0")):
-        bad = SimpleNamespace(image=case.image, segments=(SimpleNamespace(id=bad_id, centerline=line),))
-        with pytest.raises(InputError, match=rf"^case.segments\[0\].id: expected an integer, got {shown}$"):
+        segment = SimpleNamespace(id=bad_id, centerline=line)
+        bad = SimpleNamespace(image=case.image, segments=(segment,))
+        message = rf"^case.segments\[0\].id: expected an integer, got {shown}$"
+        with pytest.raises(InputError, match=message):
             sample_case(bad, points=4, size=3, pixel_mm=1.0)
     no_id = SimpleNamespace(image=case.image, segments=(SimpleNamespace(centerline=line),))
     with pytest.raises(InputError, match=r"^case.segments\[0\].id: expected an integer, got None$"):
@@ -131,7 +134,8 @@ def test_bad_case_errors_name_what_was_given():
 
 def test_default_rotation_is_none_and_default_fill_is_air():
     # Without options the stack equals single sampling with rotation 0 deg and fill -1000 HU
-    # written out (common practice, no source: air is -1000 HU by the Hounsfield scale's definition).
+    # written out (air is -1000 HU by the Hounsfield scale's definition; the default itself is
+    # common practice, no source).
     case = fake_case()
     sections = sample_case(case, points=4, size=5, pixel_mm=0.9)
     by_id = {s.id: s for s in case.segments}
