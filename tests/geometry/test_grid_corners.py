@@ -143,3 +143,6 @@ def test_crop_box_runs_from_the_lowest_floor_to_one_past_the_highest():
     # every index on the top voxel: the box is the last two voxels of each axis
     top = grid.crop(np.array([4.0]), np.array([5.0]), np.array([6.0]))[0]
     assert top.start.tolist() == [3, 4, 5] and top.size.tolist() == [2, 2, 2]
+    # every index below the image (outside, read clipped): the first two voxels of each axis
+    low = grid.crop(np.array([-2.5]), np.array([-3.0]), np.array([-1.2]))[0]
+    assert low.start.tolist() == [0, 0, 0] and low.size.tolist() == [2, 2, 2]
