@@ -3,7 +3,8 @@
 #
 #   tools/mutation.sh grading|mapping|geometry|attribution [--max-children N]
 #   (attribution-trace and attribution-maps split the attribution group in two shorter runs;
-#   attribution-methods and attribution-gradcam split attribution-maps in two again)
+#   attribution-methods and attribution-gradcam split attribution-maps in two again;
+#   geometry-stack, -grid, -centerline, -sampling and -splat run one geometry file each)
 #
 # Each group mutates only its own files and runs only the fast tests that exercise them, so a
 # run stays bounded on a shared machine (it runs under `nice -n 15`). The scratch copy lives in
@@ -34,6 +35,12 @@ case "$group" in
     only='"explain/geometry/*"'
     tests='"tests/geometry"'
     # two checks that start a subprocess or torch for every mutant; the rest cover the same code
+    deselect=', "-k", "not imports_without_torch and not tensor_is_the_patient_tensor"' ;;
+  geometry-stack|geometry-grid|geometry-centerline|geometry-sampling|geometry-splat)
+    # one geometry file alone (_grid.py for geometry-grid), with all of tests/geometry
+    file="${group#geometry-}"; [[ "$file" == grid ]] && file=_grid
+    only="\"explain/geometry/$file.py\""
+    tests='"tests/geometry"'
     deselect=', "-k", "not imports_without_torch and not tensor_is_the_patient_tensor"' ;;
   attribution)
     only='"explain/attribution/*"'

@@ -74,3 +74,72 @@ def test_bad_cases_raise_input_error():
 def test_case_sections_check_pairing():
     with pytest.raises(InputError, match="must pair up"):
         CaseSections(segment_ids=(1, 2), sections=())
+
+
+def test_case_sections_refuse_stacks_of_different_shape():
+    case = fake_case()
+    line = case.segments[0].centerline
+    small = sample_cross_sections(case.image, line, points=4, size=3, pixel_mm=1.0)
+    large = sample_cross_sections(case.image, line, points=4, size=5, pixel_mm=1.0)
+    message = r"^CaseSections: stacks differ in shape \[\(4, 3, 3\), \(4, 5, 5\)\]$"
+    with pytest.raises(InputError, match=message):
+        CaseSections(segment_ids=(1, 2), sections=(small, large))
+
+
+def test_repr_names_count_ids_shape_pixel_and_outside_pixels():
+    # Expected strings written out by hand from the options: 3 segments, 8 points of 5 x 5 px at
+    # 0.8 mm; every pixel lies within +-1.6 mm of a centerline at least 5 mm from each face of the
+    # 24-voxel image, so none is outside.
+    sections = sample_case(fake_case(), points=8, size=5, pixel_mm=0.8)
+    assert repr(sections) == ("CaseSections(3 segments [1, 7, 12], each 8 x 5x5 px at 0.8 mm, "
+                              "float32 HU, 0 px outside)")
+    assert repr(CaseSections(segment_ids=(), sections=())) == (
+        "CaseSections(0 segments [], each 0 x 0x0 px, float32 HU, 0 px outside)")
+
+
+def test_repr_counts_outside_pixels_and_fill_value_reaches_them():
+    # A 6-pixel-wide section (1 mm pixels) around a centerline on the image face x = 0: the
+    # columns at x = -2.5, -1.5, -0.5 mm lie outside the [0, 23] mm extent, so 3 of 6 columns
+    # x 6 rows x 2 points = 36 pixels (hand count) are outside and take the fill value.
+    case = fake_case()
+    edge = SimpleNamespace(id=5, centerline=Centerline([[0.0, 12.0, 6.0], [0.0, 12.0, 14.0]]))
+    one = SimpleNamespace(image=case.image, segments=(edge,))
+    default = sample_case(one, points=2, size=6, pixel_mm=1.0)
+    filled = sample_case(one, points=2, size=6, pixel_mm=1.0, fill_value=-500.0)
+    outside = default.sections[0].n_outside
+    assert outside == 36
+    assert repr(default).endswith(f"{outside} px outside)")
+    # -1000 HU (air) is the documented default fill; common practice, no source
+    assert np.sum(default.values == -1000.0) == 36
+    assert np.sum(filled.values == -500.0) == 36
+
+
+def test_bad_case_errors_name_what_was_given():
+    case = fake_case()
+    with pytest.raises(InputError, match=r"\(explain.case.Case\), got object$"):
+        sample_case(object(), points=4, size=3, pixel_mm=1.0)
+    with pytest.raises(InputError, match=r"^case: it has no segments; give at least one"):
+        sample_case(SimpleNamespace(image=case.image, segments=()), points=4, size=3, pixel_mm=1.0)
+    line = case.segments[0].centerline
+    for bad_id, shown in (("3", "'3'"), (True, "True"), (2.0, "2.0")):
+        segment = SimpleNamespace(id=bad_id, centerline=line)
+        bad = SimpleNamespace(image=case.image, segments=(segment,))
+        message = rf"^case.segments\[0\].id: expected an integer, got {shown}$"
+        with pytest.raises(InputError, match=message):
+            sample_case(bad, points=4, size=3, pixel_mm=1.0)
+    no_id = SimpleNamespace(image=case.image, segments=(SimpleNamespace(centerline=line),))
+    with pytest.raises(InputError, match=r"^case.segments\[0\].id: expected an integer, got None$"):
+        sample_case(no_id, points=4, size=3, pixel_mm=1.0)
+
+
+def test_default_rotation_is_none_and_default_fill_is_air():
+    # Without options the stack equals single sampling with rotation 0 deg and fill -1000 HU
+    # written out (air is -1000 HU by the Hounsfield scale's definition; the default itself is
+    # common practice, no source).
+    case = fake_case()
+    sections = sample_case(case, points=4, size=5, pixel_mm=0.9)
+    by_id = {s.id: s for s in case.segments}
+    for sid, cs in zip(sections.segment_ids, sections.sections):
+        explicit = sample_cross_sections(case.image, by_id[sid].centerline, points=4, size=5,
+                                         pixel_mm=0.9, rotation_deg=0.0, fill_value=-1000.0)
+        assert np.array_equal(cs.values, explicit.values)
