@@ -91,7 +91,10 @@ def _overlay_peak_near_lesion(out, method):
     from explain.case import load_case
 
     case = load_case(out / "case" / "case.json")
-    mask = sitk.GetArrayFromImage(case.reference.lesion_mask) > 0
+    # the loader keeps the mask's labelled box; SimpleITK places it back on the CT's grid
+    mask = sitk.GetArrayFromImage(sitk.Resample(case.reference.lesion_mask, case.image,
+                                                sitk.Transform(), sitk.sitkNearestNeighbor,
+                                                0)) > 0
     values = sitk.GetArrayFromImage(sitk.ReadImage(str(out / "overlays" / f"{method}.nii.gz")))
     k, j, i = np.unravel_index(int(np.argmax(values)), values.shape)
     return bool(mask[max(k - 1, 0):k + 2, max(j - 1, 0):j + 2, max(i - 1, 0):i + 2].any())
