@@ -43,6 +43,15 @@ def _whole_image_box(maps, sections, image):
                     tuple(image.GetSize()))
 
 
+def _whole_image_coverage_box(sections, *, like):
+    """coverage.nii.gz as it was built: the splat weight over the whole image, as one box."""
+    sections = list(sections)
+    _, weight = whole_image_splat([np.ones(cs.shape, dtype=np.float32) for cs in sections],
+                                  sections, like)
+    return SplatBox((0, 0, 0), np.zeros(weight.shape, np.float32), weight,
+                    tuple(like.GetSize()))
+
+
 def _same_outputs(a, b):
     for name in ("report.json", "segments.csv"):
         assert (a / name).read_bytes() == (b / name).read_bytes(), name
@@ -71,6 +80,7 @@ def test_demo_outputs_equal_the_whole_image_path(demo_case, tmp_path, monkeypatc
     old_case = dataclasses.replace(case, image=sitk.Cast(case.image, sitk.sitkFloat32))
     monkeypatch.setattr(Grid, "crop", _whole_grid_crop)
     monkeypatch.setattr(report_files, "map_box", _whole_image_box)
+    monkeypatch.setattr(report_files, "coverage_box", _whole_image_coverage_box)
     explain_case(model, old_case, seed=0).write(tmp_path / "whole")
     _same_outputs(tmp_path / "bounded", tmp_path / "whole")
     settings = json.loads((tmp_path / "bounded" / "report.json").read_text())["settings"]
