@@ -162,5 +162,6 @@ def pointing_game(attribution: np.ndarray, mask: np.ndarray, *, tolerance_mm: fl
     peaks = a == a.max()
     if tolerance_mm == 0:
         return Score(float(np.any(peaks & m)))
-    distance = ndimage.distance_transform_edt(~m, sampling=tuple(np.broadcast_to(spacing, (a.ndim,))))
+    sampling = tuple(np.broadcast_to(spacing, (a.ndim,)))
+    distance = ndimage.distance_transform_edt(~m, sampling=sampling)
     return Score(float(np.any(distance[peaks] <= tolerance_mm)))

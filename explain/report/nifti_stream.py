@@ -20,6 +20,7 @@ import numpy as np
 import SimpleITK as sitk
 
 from ..errors import InputError
+from ..io import _temp_beside
 
 __all__ = ["write_placed_nifti"]
 
@@ -72,10 +73,10 @@ def write_placed_nifti(values, start, like, path):
                          f"not fit the image of {(ni, nj, nk)}; place it in the image it was "
                          "made for")
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, temp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    temp = _temp_beside(path)  # as every output file: usual permissions, renamed when complete
     try:
-        with os.fdopen(fd, "wb") as raw, gzip.GzipFile(fileobj=raw, mode="wb", mtime=0,
-                                                        filename="") as out:
+        with open(temp, "wb") as raw, gzip.GzipFile(fileobj=raw, mode="wb", mtime=0,
+                                                     filename="") as out:
             out.write(_header(like))
             zero = bytes(4 * ni * nj)
             plane = np.zeros((nj, ni), dtype="<f4")
@@ -89,6 +90,6 @@ def write_placed_nifti(values, start, like, path):
                 plane[j0:j0 + box.shape[1], i0:i0 + box.shape[2]] = 0.0
         os.replace(temp, path)
     finally:
-        if os.path.exists(temp):
-            os.unlink(temp)
+        if temp.exists():
+            temp.unlink()
     return path

@@ -7,6 +7,7 @@ import pytest
 import SimpleITK as sitk
 
 from explain.errors import InputError
+from explain.io import write_image
 from explain.geometry import place
 from explain.geometry.splat import SplatBox
 from explain.report.nifti_stream import write_placed_nifti
@@ -54,3 +55,11 @@ def test_a_box_outside_the_image_is_refused_and_nothing_is_left(tmp_path):
     with pytest.raises(InputError, match="does not fit the image"):
         write_placed_nifti(np.ones((2, 2, 2)), (8, 0, 0), like, tmp_path / "x.nii.gz")
     assert list(tmp_path.iterdir()) == []
+
+
+def test_the_file_has_the_usual_permissions_like_every_output(tmp_path):
+    # the same rule as explain.io.write_image: the umask's permissions, not mkstemp's 0600
+    like = _oblique()
+    ours = write_placed_nifti(np.ones((1, 1, 1)), (0, 0, 0), like, tmp_path / "p.nii.gz")
+    theirs = write_image(sitk.Image([2, 2, 2], sitk.sitkFloat32), tmp_path / "q.nii.gz")
+    assert ours.stat().st_mode & 0o777 == theirs.stat().st_mode & 0o777
